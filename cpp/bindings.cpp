@@ -1,0 +1,235 @@
+// Python bindings of the core: the only file that includes pybind11. Arrays arrive checked by the
+// Python layer; anything the core still rejects throws a C++ exception that is translated here into
+// ValueError / TypeError / MemoryError / KeyboardInterrupt.
+#include <pybind11/functional.h>
+#include <pybind11/numpy.h>
+#include <pybind11/pybind11.h>
+#include <pybind11/stl.h>
+
+#include <chrono>
+#include <cstdint>
+#include <string>
+#include <vector>
+
+#include "core/error.hpp"
+#include "core/grid.hpp"
+#include "core/path.hpp"
+#include "core/pool.hpp"
+#include "core/random.hpp"
+#include "core/template.hpp"
+
+namespace py = pybind11;
+using sl::Index;
+
+#ifndef STRATALOOM_VERSION
+#define STRATALOOM_VERSION "0+unknown"
+#endif
+
+namespace {
+
+template <class T>
+using CArray = py::array_t<T, py::array::c_style | py::array::forcecast>;
+
+// A poll for sl::run_supervised: checks Ctrl-C and calls the progress callback, with the GIL.
+// Holds a pointer so that copying the std::function never touches Python reference counts.
+sl::Poll make_poll(const py::object* progress) {
+  return [progress](std::int64_t done, std::int64_t total) -> bool {
+    py::gil_scoped_acquire gil;
+    if (PyErr_CheckSignals() != 0) throw py::error_already_set();
+    if (progress && !progress->is_none()) (*progress)(done, total);
+    return true;
+  };
+}
+
+sl::Ijk to_ijk(const std::array<Index, 3>& a) { return {a[0], a[1], a[2]}; }
+
+std::vector<sl::Offset> offsets_from(const CArray<std::int64_t>& a, const char* name) {
+  if (a.ndim() != 2 || a.shape(1) != 3)
+    throw sl::ParameterError(name, "must be an (n, 3) integer array of (dz, dy, dx) offsets.");
+  std::vector<sl::Offset> out(static_cast<std::size_t>(a.shape(0)));
+  auto r = a.unchecked<2>();
+  for (py::ssize_t i = 0; i < a.shape(0); ++i)
+    for (int k = 0; k < 3; ++k) {
+      const std::int64_t v = r(i, k);
+      if (v < -(1 << 24) || v > (1 << 24)) throw sl::ParameterError(name, "must hold offsets of at most 2**24 cells.");
+      out[static_cast<std::size_t>(i)][k] = static_cast<std::int32_t>(v);
+    }
+  return out;
+}
+
+py::array_t<std::int64_t> offsets_to_array(const std::vector<sl::Offset>& offsets) {
+  py::array_t<std::int64_t> out({static_cast<py::ssize_t>(offsets.size()), py::ssize_t{3}});
+  auto w = out.mutable_unchecked<2>();
+  for (std::size_t i = 0; i < offsets.size(); ++i)
+    for (int k = 0; k < 3; ++k) w(static_cast<py::ssize_t>(i), k) = offsets[i][k];
+  return out;
+}
+
+template <class T>
+py::array_t<T> vector_to_array(std::vector<T>&& v) {
+  auto* heap = new std::vector<T>(std::move(v));
+  py::capsule owner(heap, [](void* p) { delete static_cast<std::vector<T>*>(p); });
+  return py::array_t<T>({static_cast<py::ssize_t>(heap->size())}, {sizeof(T)}, heap->data(), owner);
+}
+
+void bind_core(py::module_& m) {
+  py::class_<sl::Grid>(m, "Grid")
+      .def(py::init([](std::array<Index, 3> shape, std::array<double, 3> spacing, std::array<double, 3> origin) {
+             return sl::Grid(to_ijk(shape), spacing, origin);
+           }),
+           py::arg("shape"), py::arg("spacing"), py::arg("origin"))
+      .def_property_readonly("shape", &sl::Grid::shape)
+      .def_property_readonly("spacing", &sl::Grid::spacing)
+      .def_property_readonly("origin", &sl::Grid::origin)
+      .def_property_readonly("size", &sl::Grid::size)
+      .def("level_extent", [](const sl::Grid& g, int level) {
+        sl::require_level(level);
+        return std::array<Index, 3>{g.level_extent(level, 0), g.level_extent(level, 1), g.level_extent(level, 2)};
+      })
+      .def("index", [](const sl::Grid& g, const CArray<std::int64_t>& cells) {
+        if (cells.ndim() != 2 || cells.shape(1) != 3) throw sl::ParameterError("cells", "must be an (n, 3) integer array.");
+        py::array_t<std::int64_t> out(cells.shape(0));
+        auto r = cells.unchecked<2>();
+        auto w = out.mutable_unchecked<1>();
+        for (py::ssize_t i = 0; i < cells.shape(0); ++i) {
+          const sl::Ijk c{r(i, 0), r(i, 1), r(i, 2)};
+          if (!g.contains(c))
+            throw sl::ParameterError("cells", "holds cell (" + std::to_string(c[0]) + ", " + std::to_string(c[1]) + ", " +
+                                                  std::to_string(c[2]) + ") outside the grid.");
+          w(i) = g.index(c);
+        }
+        return out;
+      })
+      .def("cell", [](const sl::Grid& g, const CArray<std::int64_t>& index) {
+        py::array_t<std::int64_t> out({index.size(), py::ssize_t{3}});
+        const std::int64_t* r = index.data();
+        auto w = out.mutable_unchecked<2>();
+        for (py::ssize_t i = 0; i < index.size(); ++i) {
+          if (r[i] < 0 || r[i] >= g.size())
+            throw sl::ParameterError("index", "holds " + std::to_string(r[i]) + ", outside [0, " + std::to_string(g.size()) + ").");
+          const sl::Ijk c = g.cell(r[i]);
+          for (int k = 0; k < 3; ++k) w(i, k) = c[k];
+        }
+        return out;
+      })
+      .def("centre", [](const sl::Grid& g, const CArray<std::int64_t>& cells) {
+        if (cells.ndim() != 2 || cells.shape(1) != 3) throw sl::ParameterError("cells", "must be an (n, 3) integer array.");
+        py::array_t<double> out({cells.shape(0), py::ssize_t{3}});
+        auto r = cells.unchecked<2>();
+        auto w = out.mutable_unchecked<2>();
+        for (py::ssize_t i = 0; i < cells.shape(0); ++i) {
+          const sl::Xyz p = g.centre({r(i, 0), r(i, 1), r(i, 2)});
+          for (int k = 0; k < 3; ++k) w(i, k) = p[k];
+        }
+        return out;
+      })
+      .def("locate", [](const sl::Grid& g, const CArray<double>& points) {
+        if (points.ndim() != 2 || points.shape(1) != 3) throw sl::ParameterError("points", "must be an (n, 3) float array.");
+        py::array_t<std::int64_t> out({points.shape(0), py::ssize_t{3}});
+        auto r = points.unchecked<2>();
+        auto w = out.mutable_unchecked<2>();
+        for (py::ssize_t i = 0; i < points.shape(0); ++i) {
+          sl::Ijk c{-1, -1, -1};
+          if (!g.locate({r(i, 0), r(i, 1), r(i, 2)}, c)) c = {-1, -1, -1};
+          for (int k = 0; k < 3; ++k) w(i, k) = c[k];
+        }
+        return out;
+      });
+
+  m.def("template_box", [](std::array<std::int32_t, 3> radius) { return offsets_to_array(sl::Template::box(radius).offsets()); },
+        py::arg("radius"));
+  m.def("template_ellipsoid",
+        [](std::array<double, 3> radius, std::int64_t max_nodes) {
+          return offsets_to_array(sl::Template::ellipsoid(radius, max_nodes).offsets());
+        },
+        py::arg("radius"), py::arg("max_nodes"));
+  m.def("template_check", [](const CArray<std::int64_t>& offsets) {
+        return offsets_to_array(sl::Template(offsets_from(offsets, "offsets")).offsets());
+      },
+      py::arg("offsets"));
+  m.def("template_sort", [](const CArray<std::int64_t>& offsets, std::array<double, 3> radius) {
+        auto o = offsets_from(offsets, "offsets");
+        sl::sort_by_anisotropic_distance(o, radius);
+        return offsets_to_array(o);
+      },
+      py::arg("offsets"), py::arg("radius"));
+
+  m.def("uniform", [](std::uint64_t seed, std::uint32_t level, const CArray<std::int64_t>& cells, std::uint32_t stream) {
+        py::array_t<double> out(cells.size());
+        const std::int64_t* c = cells.data();
+        double* w = out.mutable_data();
+        {
+          py::gil_scoped_release release;
+          for (py::ssize_t i = 0; i < cells.size(); ++i) w[i] = sl::to_unit(sl::random_bits(seed, level, static_cast<std::uint64_t>(c[i]), stream));
+        }
+        return out;
+      },
+      py::arg("seed"), py::arg("level"), py::arg("cells"), py::arg("stream"));
+
+  m.def("level_cells", [](const sl::Grid& g, int level, int coarsest) { return vector_to_array(sl::level_cells(g, level, coarsest)); },
+        py::arg("grid"), py::arg("level"), py::arg("coarsest"));
+  m.def("random_path",
+        [](const sl::Grid& g, int level, int coarsest, std::uint64_t seed) {
+          auto cells = sl::level_cells(g, level, coarsest);
+          sl::shuffle_path(cells, seed, level);
+          return vector_to_array(std::move(cells));
+        },
+        py::arg("grid"), py::arg("level"), py::arg("coarsest"), py::arg("seed"));
+  m.def("conflict_free_batches",
+        [](const sl::Grid& g, int level, std::array<std::int32_t, 3> reach, const CArray<std::int64_t>& path, std::int64_t max_batch) {
+          std::vector<Index> p(path.data(), path.data() + path.size());
+          for (Index c : p)
+            if (c < 0 || c >= g.size()) throw sl::ParameterError("path", "holds a cell index outside the grid.");
+          auto starts = sl::conflict_free_batches(g, level, {reach[0], reach[1], reach[2]}, p, max_batch);
+          return py::make_tuple(vector_to_array(std::move(p)), vector_to_array(std::move(starts)));
+        },
+        py::arg("grid"), py::arg("level"), py::arg("reach"), py::arg("path"), py::arg("max_batch"));
+
+  // Diagnostic used by the test-suite: keeps `threads` workers busy for `seconds`, reporting
+  // progress, so that cancellation and progress can be checked without an engine.
+  m.def("pool_selftest",
+        [](double seconds, int threads, const py::object& progress) {
+          sl::WorkControl ctl;
+          ctl.total = 1000;
+          const sl::Poll poll = make_poll(&progress);
+          int used = 0;
+          {
+            py::gil_scoped_release release;
+            const auto t0 = std::chrono::steady_clock::now();
+            used = sl::resolve_threads(threads);
+            sl::run_supervised(
+                threads,
+                [&](int worker, int) {
+                  while (!ctl.cancelled()) {
+                    const double el = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+                    if (el >= seconds) break;
+                    if (worker == 0) ctl.done.store(static_cast<std::int64_t>(1000 * el / seconds));
+                    std::this_thread::sleep_for(std::chrono::milliseconds(2));
+                  }
+                  if (worker == 0) ctl.done.store(1000);
+                },
+                ctl, poll);
+          }
+          return used;
+        },
+        py::arg("seconds"), py::arg("threads"), py::arg("progress") = py::none());
+}
+
+}  // namespace
+
+PYBIND11_MODULE(_core, m) {
+  m.doc() = "Strata Loom compiled core (private; use the strataloom package).";
+  m.attr("__version__") = STRATALOOM_VERSION;
+
+  py::register_exception<sl::ParameterError>(m, "ParameterError", PyExc_ValueError);
+  py::register_exception<sl::ParameterTypeError>(m, "ParameterTypeError", PyExc_TypeError);
+  py::register_exception<sl::MemoryLimitError>(m, "MemoryLimitError", PyExc_MemoryError);
+  py::register_exception_translator([](std::exception_ptr p) {
+    try {
+      if (p) std::rethrow_exception(p);
+    } catch (const sl::Cancelled&) {
+      py::set_error(PyExc_KeyboardInterrupt, "simulation cancelled");
+    }
+  });
+  bind_core(m);
+}

@@ -1,0 +1,161 @@
+// Threads for the engines: a supervised run on worker threads while the calling thread polls for
+// cancellation and reports progress, and a batch runner for conflict-free batches of path nodes.
+//
+// The calling thread never computes: it wakes every `interval` to call `poll(done, total)`, which
+// the bindings use to check Ctrl-C and to call a Python progress callback with the GIL held. When
+// poll returns false the workers stop at their next check and Cancelled is thrown once all have
+// joined, so no thread outlives the call.
+#pragma once
+
+#include <algorithm>
+#include <atomic>
+#include <barrier>
+#include <chrono>
+#include <condition_variable>
+#include <cstdint>
+#include <exception>
+#include <functional>
+#include <mutex>
+#include <thread>
+#include <vector>
+
+#include "core/error.hpp"
+
+namespace sl {
+
+// Called on the calling thread with the work done so far; return false to cancel.
+using Poll = std::function<bool(std::int64_t done, std::int64_t total)>;
+
+// Shared state between the supervisor and the workers of one run.
+struct WorkControl {
+  std::atomic<bool> cancel{false};
+  std::atomic<std::int64_t> done{0};
+  std::int64_t total = 0;
+
+  bool cancelled() const noexcept { return cancel.load(std::memory_order_relaxed); }
+};
+
+// Number of worker threads for a request: <= 0 means all hardware threads.
+inline int resolve_threads(int requested) {
+  if (requested > 0) return std::min(requested, 1024);
+  const unsigned hw = std::thread::hardware_concurrency();
+  return hw ? static_cast<int>(hw) : 1;
+}
+
+// Runs body(worker, workers) on `threads` worker threads while this thread polls. The first
+// exception of any worker is rethrown after all have joined; a false poll throws Cancelled.
+inline void run_supervised(int threads, const std::function<void(int, int)>& body, WorkControl& ctl,
+                           const Poll& poll, std::chrono::milliseconds interval = std::chrono::milliseconds(100)) {
+  threads = resolve_threads(threads);
+  std::mutex m;
+  std::condition_variable cv;
+  int running = threads;
+  std::exception_ptr error;
+  std::vector<std::thread> pool;
+  pool.reserve(static_cast<std::size_t>(threads));
+  for (int w = 0; w < threads; ++w) {
+    pool.emplace_back([&, w] {
+      try {
+        body(w, threads);
+      } catch (...) {
+        std::lock_guard<std::mutex> lk(m);
+        if (!error) error = std::current_exception();
+        ctl.cancel.store(true);
+      }
+      std::lock_guard<std::mutex> lk(m);
+      --running;
+      cv.notify_all();
+    });
+  }
+  bool stopped_by_poll = false;
+  {
+    std::unique_lock<std::mutex> lk(m);
+    while (running > 0) {
+      cv.wait_for(lk, interval, [&] { return running == 0; });
+      if (running == 0) break;
+      lk.unlock();
+      bool keep = true;
+      if (poll) {
+        try {
+          keep = poll(ctl.done.load(), ctl.total);
+        } catch (...) {
+          std::lock_guard<std::mutex> g(m);
+          if (!error) error = std::current_exception();
+          keep = false;
+        }
+      }
+      if (!keep && !ctl.cancelled()) {
+        stopped_by_poll = true;
+        ctl.cancel.store(true);
+      }
+      lk.lock();
+    }
+  }
+  for (auto& t : pool) t.join();
+  if (error) std::rethrow_exception(error);
+  if (stopped_by_poll) throw Cancelled();
+  if (poll) poll(ctl.done.load(), ctl.total);
+}
+
+// Runs node_fn(worker, position) for every position of every batch, batch after batch: positions
+// [starts[b], starts[b + 1]) of one batch run concurrently (they must not read each other's
+// results), then after_batch(b) runs on one thread before the next batch starts. `starts` ends
+// with the total count. Results are the same for any number of threads as long as node_fn only
+// reads state fixed before the batch and writes its own output.
+template <class NodeFn, class AfterBatch>
+void run_batches(int threads, const std::vector<std::int64_t>& starts, NodeFn&& node_fn, AfterBatch&& after_batch,
+                 WorkControl& ctl, const Poll& poll) {
+  threads = resolve_threads(threads);
+  const std::size_t batches = starts.empty() ? 0 : starts.size() - 1;
+  if (batches == 0) return;
+  // Cap the workers by the largest batch: more threads than nodes would only wait.
+  std::int64_t widest = 1;
+  for (std::size_t b = 0; b < batches; ++b) widest = std::max(widest, starts[b + 1] - starts[b]);
+  threads = static_cast<int>(std::min<std::int64_t>(threads, widest));
+  std::atomic<std::int64_t> next{starts[0]};
+  std::size_t batch = 0;
+  bool stop = false;  // written only in the barrier completion, read by all after it
+  std::exception_ptr after_error;
+  std::exception_ptr node_error;
+  std::mutex error_mutex;
+  auto on_batch_end = [&]() noexcept {
+    try {
+      after_batch(batch);
+    } catch (...) {
+      after_error = std::current_exception();
+      ctl.cancel.store(true);
+    }
+    ctl.done.fetch_add(starts[batch + 1] - starts[batch]);
+    ++batch;
+    stop = ctl.cancelled() || batch >= batches;
+    if (!stop) next.store(starts[batch]);
+  };
+  std::barrier sync(threads, on_batch_end);
+  run_supervised(
+      threads,
+      [&](int worker, int) {
+        while (true) {
+          const std::int64_t end = starts[batch + 1];
+          if (!ctl.cancelled()) {
+            try {
+              for (std::int64_t p = next.fetch_add(1); p < end; p = next.fetch_add(1)) {
+                node_fn(worker, p);
+                if (ctl.cancelled()) break;
+              }
+            } catch (...) {
+              // Keep arriving at the barrier so the other workers are not left waiting.
+              std::lock_guard<std::mutex> lk(error_mutex);
+              if (!node_error) node_error = std::current_exception();
+              ctl.cancel.store(true);
+            }
+          }
+          sync.arrive_and_wait();
+          if (stop) break;
+        }
+      },
+      ctl, poll);
+  if (node_error) std::rethrow_exception(node_error);
+  if (after_error) std::rethrow_exception(after_error);
+}
+
+}  // namespace sl

@@ -1,0 +1,123 @@
+// Unit tests of cpp/core: grid index math, templates, random draws, paths, batches, the pool.
+#include <algorithm>
+#include <atomic>
+#include <set>
+
+#include "core/error.hpp"
+#include "core/grid.hpp"
+#include "core/path.hpp"
+#include "core/pool.hpp"
+#include "core/random.hpp"
+#include "core/template.hpp"
+#include "tests/check.hpp"
+
+using namespace sl;
+
+SL_TEST(grid_index_round_trip) {
+  const Grid g({3, 4, 5});
+  for (Index i = 0; i < g.size(); ++i) SL_CHECK(g.index(g.cell(i)) == i);
+  SL_CHECK(g.index({1, 2, 3}) == (1 * 4 + 2) * 5 + 3);
+}
+
+SL_TEST(grid_locate_and_centre) {
+  const Grid g({2, 2, 2}, {2, 1, 0.5}, {10, 0, -1});
+  Ijk c{};
+  SL_CHECK(g.locate(g.centre({1, 0, 1}), c) && c == Ijk({1, 0, 1}));
+  SL_CHECK(!g.locate({9.99, 0.5, -0.5}, c));
+  SL_CHECK(!g.locate({14.0, 0.5, -0.5}, c));  // the upper outer face is outside
+}
+
+SL_TEST(grid_rejects_bad_shape_and_spacing) {
+  SL_CHECK_THROWS(Grid({0, 1, 1}), ParameterError);
+  SL_CHECK_THROWS(Grid({1, 1, 1}, {1, 0, 1}), ParameterError);
+}
+
+SL_TEST(grid_levels) {
+  const Grid g({1, 5, 9});
+  SL_CHECK(g.level_extent(1, 2) == 5 && g.level_extent(2, 1) == 2);
+  SL_CHECK(Grid::on_level({0, 4, 8}, 2) && !Grid::on_level({0, 2, 8}, 2));
+}
+
+SL_TEST(template_box_count_and_order) {
+  const auto t = Template::box({1, 1, 1});
+  SL_CHECK(t.size() == 26);
+  // nearest first: the six face neighbours come first, in lexicographic order
+  SL_CHECK(t.offsets()[0] == Offset({-1, 0, 0}) && t.offsets()[5] == Offset({1, 0, 0}));
+}
+
+SL_TEST(template_rejects_duplicates_and_centre) {
+  SL_CHECK_THROWS(Template({{0, 0, 1}, {0, 0, 1}}), ParameterError);
+  SL_CHECK_THROWS(Template({{0, 0, 0}}), ParameterError);
+  SL_CHECK_THROWS(Template::box({200, 200, 200}), ParameterError);
+}
+
+SL_TEST(template_level_scaling) {
+  const auto t = Template::ellipsoid({0, 2, 3}, 10).at_level(2);
+  for (const auto& o : t.offsets()) SL_CHECK(o[0] == 0 && o[1] % 4 == 0 && o[2] % 4 == 0);
+}
+
+SL_TEST(random_draws_are_pure) {
+  SL_CHECK(random_bits(7, 1, 99, Stream::draw) == random_bits(7, 1, 99, Stream::draw));
+  SL_CHECK(random_bits(7, 1, 99, Stream::draw) != random_bits(7, 2, 99, Stream::draw));
+  SL_CHECK(random_bits(7, 1, 99, Stream::draw) != random_bits(8, 1, 99, Stream::draw));
+  SL_CHECK(random_bits(7, 1, 99, Stream::draw) != random_bits(7, 1, 99, Stream::path));
+  double lo = 1, hi = 0;
+  for (std::uint64_t c = 0; c < 10000; ++c) {
+    const double u = uniform(1, 0, c, Stream::draw);
+    lo = std::min(lo, u);
+    hi = std::max(hi, u);
+  }
+  SL_CHECK(lo >= 0 && lo < 0.001 && hi < 1 && hi > 0.999);
+}
+
+SL_TEST(paths_cover_each_cell_once) {
+  const Grid g({3, 7, 9});
+  std::set<Index> all;
+  for (int level = 2; level >= 0; --level) {
+    auto p = level_cells(g, level, 2);
+    shuffle_path(p, 5, level);
+    for (Index c : p) SL_CHECK(all.insert(c).second);
+  }
+  SL_CHECK(static_cast<Index>(all.size()) == g.size());
+}
+
+SL_TEST(batches_are_conflict_free) {
+  const Grid g({1, 40, 40});
+  auto p = level_cells(g, 0, 0);
+  shuffle_path(p, 3, 0);
+  auto copy = p;
+  const Offset reach{0, 2, 3};
+  const auto starts = conflict_free_batches(g, 0, reach, p, 64);
+  std::sort(copy.begin(), copy.end());
+  auto sorted = p;
+  std::sort(sorted.begin(), sorted.end());
+  SL_CHECK(sorted == copy);
+  for (std::size_t b = 0; b + 1 < starts.size(); ++b)
+    for (auto i = starts[b]; i < starts[b + 1]; ++i)
+      for (auto j = i + 1; j < starts[b + 1]; ++j) {
+        const Ijk a = g.cell(p[i]), c = g.cell(p[j]);
+        SL_CHECK(std::abs(a[1] - c[1]) > reach[1] || std::abs(a[2] - c[2]) > reach[2]);
+      }
+}
+
+SL_TEST(pool_runs_batches_and_cancels) {
+  std::vector<std::int64_t> starts{0, 10, 25, 40};
+  std::vector<int> hit(40, 0);
+  std::atomic<int> after{0};
+  WorkControl ctl;
+  run_batches(3, starts, [&](int, std::int64_t p) { hit[static_cast<std::size_t>(p)] += 1; },
+              [&](std::size_t) { after += 1; }, ctl, Poll{});
+  SL_CHECK(std::all_of(hit.begin(), hit.end(), [](int h) { return h == 1; }) && after == 3);
+  WorkControl ctl2;
+  SL_CHECK_THROWS(run_supervised(2, [&](int, int) { while (!ctl2.cancelled()) std::this_thread::yield(); }, ctl2,
+                                 [](std::int64_t, std::int64_t) { return false; }, std::chrono::milliseconds(5)),
+                  Cancelled);
+}
+
+SL_TEST(pool_rethrows_worker_errors) {
+  std::vector<std::int64_t> starts{0, 8, 16};
+  WorkControl ctl;
+  SL_CHECK_THROWS(run_batches(2, starts, [&](int, std::int64_t p) { if (p == 3) throw ParameterError("x", "bad"); },
+                              [](std::size_t) {}, ctl, Poll{}),
+                  ParameterError);
+}

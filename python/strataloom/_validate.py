@@ -1,0 +1,128 @@
+"""Validation helpers for the public API: one message shape for every parameter error."""
+
+from __future__ import annotations
+
+import numbers
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+
+from .errors import ParameterError, ParameterTypeError
+
+
+def _owner(owner: str | None) -> str:
+    return f" of {owner}" if owner else ""
+
+
+def fail(name: str, expected: str, got: Any, owner: str | None = None) -> ParameterError:
+    """A ParameterError in the project's one message shape."""
+    return ParameterError(f"The parameter '{name}'{_owner(owner)} must be {expected}. Got {got!r} instead.")
+
+
+def fail_type(name: str, expected: str, got: Any, owner: str | None = None) -> ParameterTypeError:
+    """A ParameterTypeError in the project's one message shape."""
+    shown = type(got).__name__ if not isinstance(got, np.ndarray) else f"an array of dtype {got.dtype}"
+    return ParameterTypeError(f"The parameter '{name}'{_owner(owner)} must be {expected}. Got {shown} instead.")
+
+
+def integer(value: Any, name: str, *, low: int | None = None, high: int | None = None,
+            owner: str | None = None) -> int:
+    """An int within [low, high] (bools are refused)."""
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
+        raise fail_type(name, "an integer", value, owner)
+    value = int(value)
+    if (low is not None and value < low) or (high is not None and value > high):
+        lo = "-inf" if low is None else str(low)
+        hi = "inf" if high is None else str(high)
+        raise fail(name, f"an integer in [{lo}, {hi}]", value, owner)
+    return value
+
+
+def real(value: Any, name: str, *, low: float | None = None, high: float | None = None,
+         low_open: bool = False, high_open: bool = False, owner: str | None = None) -> float:
+    """A finite float within the stated interval."""
+    if isinstance(value, bool) or not isinstance(value, numbers.Real):
+        raise fail_type(name, "a number", value, owner)
+    value = float(value)
+    bad = not np.isfinite(value)
+    if low is not None:
+        bad |= value <= low if low_open else value < low
+    if high is not None:
+        bad |= value >= high if high_open else value > high
+    if bad:
+        lo = "-inf" if low is None else f"{low:g}"
+        hi = "inf" if high is None else f"{high:g}"
+        interval = ("(" if low_open else "[") + f"{lo}, {hi}" + (")" if high_open else "]")
+        raise fail(name, f"a finite number in {interval}", value, owner)
+    return value
+
+
+def triple(value: Any, name: str, kind: type, *, owner: str | None = None) -> tuple:
+    """Three numbers (z, y, x); a 2-sequence (y, x) is refused here so callers decide about 2-D."""
+    if isinstance(value, (str, bytes)) or not isinstance(value, Sequence | np.ndarray):
+        raise fail_type(name, "a sequence of 3 numbers (z, y, x)", value, owner)
+    items = list(np.asarray(value).ravel()) if isinstance(value, np.ndarray) else list(value)
+    if len(items) != 3:
+        raise fail(name, "a sequence of 3 numbers (z, y, x)", tuple(items), owner)
+    out = []
+    for v in items:
+        if kind is int:
+            if isinstance(v, bool) or not isinstance(v, numbers.Integral):
+                raise fail_type(name, "a sequence of 3 integers (z, y, x)", v, owner)
+            out.append(int(v))
+        else:
+            if isinstance(v, bool) or not isinstance(v, numbers.Real):
+                raise fail_type(name, "a sequence of 3 numbers (z, y, x)", v, owner)
+            out.append(float(v))
+    return tuple(out)
+
+
+def shape3(value: Any, name: str = "shape", *, owner: str | None = None) -> tuple[int, int, int]:
+    """A grid shape (nz, ny, nx) of positive integers; (ny, nx) means nz = 1."""
+    if isinstance(value, numbers.Integral) or isinstance(value, (str, bytes)):
+        raise fail_type(name, "a sequence of 2 or 3 positive integers", value, owner)
+    items = tuple(value) if isinstance(value, Sequence | np.ndarray) else None
+    if items is None:
+        raise fail_type(name, "a sequence of 2 or 3 positive integers", value, owner)
+    if len(items) == 2:
+        items = (1, *items)
+    if len(items) != 3:
+        raise fail(name, "a sequence of 2 or 3 positive integers (nz, ny, nx)", tuple(value), owner)
+    for v in items:
+        if isinstance(v, bool) or not isinstance(v, numbers.Integral):
+            raise fail_type(name, "a sequence of 2 or 3 positive integers", v, owner)
+        if int(v) < 1:
+            raise fail(name, "a sequence of 2 or 3 positive integers (nz, ny, nx)", tuple(value), owner)
+    return tuple(int(v) for v in items)  # type: ignore[return-value]
+
+
+def as_volume(array: Any, name: str, *, owner: str | None = None) -> np.ndarray:
+    """A 2-D (ny, nx) or 3-D (nz, ny, nx) array viewed as 3-D, without copying when possible."""
+    a = np.asarray(array)
+    if a.ndim == 2:
+        a = a[np.newaxis]
+    if a.ndim != 3:
+        raise fail(name, "a 2-D (ny, nx) or 3-D (nz, ny, nx) array", f"an array of shape {a.shape}", owner)
+    if a.size == 0:
+        raise fail(name, "a non-empty array", f"an array of shape {a.shape}", owner)
+    return a
+
+
+def callback(value: Any, name: str, *, owner: str | None = None) -> Any:
+    """None or a callable."""
+    if value is not None and not callable(value):
+        raise fail_type(name, "None or a callable", value, owner)
+    return value
+
+
+def seed(value: Any, name: str = "seed", *, owner: str | None = None) -> int:
+    """A seed in [0, 2**63)."""
+    return integer(value, name, low=0, high=2**63 - 1, owner=owner)
+
+
+def threads(value: Any, name: str = "threads", *, owner: str | None = None) -> int:
+    """None (all cores) or a positive thread count; 0 is returned for None."""
+    if value is None:
+        return 0
+    return integer(value, name, low=1, high=1024, owner=owner)
