@@ -17,6 +17,9 @@
 #include "core/pool.hpp"
 #include "core/random.hpp"
 #include "core/template.hpp"
+#include "merge/tau.hpp"
+#include "tree/pattern_tree.hpp"
+#include "tree/tree_sim.hpp"
 
 namespace py = pybind11;
 using sl::Index;
@@ -215,6 +218,105 @@ void bind_core(py::module_& m) {
         py::arg("seconds"), py::arg("threads"), py::arg("progress") = py::none());
 }
 
+// Pattern-tree engine. The Python layer has checked dtypes and shapes; the core checks the rest.
+void bind_tree(py::module_& m) {
+  m.def("default_memory_limit", &sl::default_memory_limit);
+  m.def("tau_merge",
+        [](const CArray<double>& prior, const CArray<double>& sources, const CArray<double>& tau) {
+          if (prior.ndim() != 1 || sources.ndim() != 2 || sources.shape(1) != prior.shape(0) || tau.ndim() != 1 ||
+              tau.shape(0) != sources.shape(0))
+            throw sl::ParameterError("sources", "must be an (s, K) array with K = len(prior) and s = len(tau).");
+          py::array_t<double> out(prior.shape(0));
+          sl::tau_merge(prior.data(), sources.data(), tau.data(), static_cast<std::size_t>(sources.shape(0)),
+                        static_cast<std::size_t>(prior.shape(0)), out.mutable_data());
+          return out;
+        },
+        py::arg("prior"), py::arg("sources"), py::arg("tau"));
+
+  py::class_<sl::PatternTree>(m, "PatternTree")
+      .def(py::init([](const CArray<std::uint8_t>& codes, int categories, const CArray<std::int64_t>& offsets, int levels,
+                       std::int64_t memory_limit) {
+             if (codes.ndim() != 3) throw sl::ParameterError("training_image", "must be a 3-D array.");
+             sl::CategoricalImage ti;
+             ti.shape = {codes.shape(0), codes.shape(1), codes.shape(2)};
+             ti.codes.assign(codes.data(), codes.data() + codes.size());
+             ti.categories = categories;
+             sl::Template tpl(offsets_from(offsets, "template"));
+             py::gil_scoped_release release;
+             return new sl::PatternTree(std::move(ti), tpl, levels, memory_limit);
+           }),
+           py::arg("codes"), py::arg("categories"), py::arg("offsets"), py::arg("levels"), py::arg("memory_limit"))
+      .def_property_readonly("levels", &sl::PatternTree::levels)
+      .def_property_readonly("categories", &sl::PatternTree::categories)
+      .def_property_readonly("memory_bytes", &sl::PatternTree::memory_bytes)
+      .def_property_readonly("category_counts", [](const sl::PatternTree& t) {
+        auto v = t.category_counts();
+        return vector_to_array(std::move(v));
+      })
+      .def("node_count", &sl::PatternTree::node_count, py::arg("level"))
+      .def("conditional",
+           [](const sl::PatternTree& t, int level, const CArray<std::int32_t>& index, const CArray<std::uint8_t>& value,
+              std::int64_t min_replicates, bool scan) {
+             if (level < 0 || level >= t.levels()) throw sl::ParameterError("level", "is not a level of this tree.");
+             if (index.size() != value.size()) throw sl::ParameterError("values", "must have one value per offset.");
+             const int m = static_cast<int>(index.size());
+             for (int i = 0; i < m; ++i) {
+               if (index.data()[i] < 0 || static_cast<std::size_t>(index.data()[i]) >= t.template_size() ||
+                   (i > 0 && index.data()[i] <= index.data()[i - 1]))
+                 throw sl::ParameterError("offsets", "must be distinct template nodes.");
+               if (value.data()[i] >= t.categories()) throw sl::ParameterError("values", "must be codes 0..K-1.");
+             }
+             sl::QueryScratch scratch;
+             const sl::EventAnswer a = scan ? t.scan(level, index.data(), value.data(), m, min_replicates, scratch)
+                                            : t.query(level, index.data(), value.data(), m, min_replicates, false, scratch);
+             return py::make_tuple(vector_to_array(std::move(scratch.best)), a.replicates, a.kept);
+           },
+           py::arg("level"), py::arg("index"), py::arg("values"), py::arg("min_replicates"), py::arg("scan") = false)
+      .def("simulate",
+           [](const sl::PatternTree& t, std::array<Index, 3> shape, const py::object& hard, const std::vector<CArray<double>>& soft,
+              const std::vector<double>& tau, const std::vector<double>& target, double steering, std::uint64_t seed, int threads,
+              int max_conditioning, std::int64_t min_replicates, std::int64_t max_batch, const py::object& progress) {
+             const sl::Grid grid(to_ijk(shape));
+             std::vector<std::int16_t> hard_codes;
+             if (!hard.is_none()) {
+               auto h = hard.cast<CArray<std::int16_t>>();
+               if (h.size() != grid.size()) throw sl::ParameterError("hard", "must have the grid's shape.");
+               hard_codes.assign(h.data(), h.data() + h.size());
+             }
+             sl::TreeSimOptions opt;
+             opt.seed = seed;
+             opt.threads = threads;
+             opt.max_conditioning = max_conditioning;
+             opt.min_replicates = min_replicates;
+             for (const auto& s : soft) {
+               if (s.size() != grid.size() * t.categories())
+                 throw sl::ParameterError("soft", "must hold K probabilities per grid cell.");
+               opt.soft.push_back(s.data());
+             }
+             opt.tau = tau;
+             opt.target = target;
+             opt.steering = steering;
+             opt.max_batch = max_batch;
+             const sl::Poll poll = make_poll(&progress);
+             sl::TreeSimStats stats;
+             std::vector<std::int16_t> out;
+             {
+               py::gil_scoped_release release;
+               out = sl::simulate_tree(t, grid, hard_codes, opt, poll, &stats);
+             }
+             py::dict st;
+             st["simulated"] = stats.simulated;
+             st["mean_informed"] = stats.mean_informed;
+             st["mean_kept"] = stats.mean_kept;
+             st["scans"] = stats.scans;
+             st["relocated"] = stats.relocated;
+             return py::make_tuple(vector_to_array(std::move(out)), st);
+           },
+           py::arg("shape"), py::arg("hard"), py::arg("soft"), py::arg("tau"), py::arg("target"), py::arg("steering"),
+           py::arg("seed"), py::arg("threads"), py::arg("max_conditioning"), py::arg("min_replicates"), py::arg("max_batch"),
+           py::arg("progress"));
+}
+
 }  // namespace
 
 PYBIND11_MODULE(_core, m) {
@@ -232,4 +334,5 @@ PYBIND11_MODULE(_core, m) {
     }
   });
   bind_core(m);
+  bind_tree(m);
 }

@@ -8,7 +8,9 @@ from importlib.metadata import version as _version
 from .errors import MemoryLimitError, ParameterError, ParameterTypeError, StudyError
 from .grid import Grid
 from .paths import conflict_free_batches, random_path, uniform_draws
+from .tau import tau_merge
 from .template import Template
+from .tree import PatternTree
 
 try:
     __version__ = _version("strataloom")
@@ -20,10 +22,12 @@ __all__ = [
     "MemoryLimitError",
     "ParameterError",
     "ParameterTypeError",
+    "PatternTree",
     "StudyError",
     "Template",
     "__version__",
     "conflict_free_batches",
     "random_path",
+    "tau_merge",
     "uniform_draws",
 ]

@@ -1,0 +1,101 @@
+// Pattern tree: the counts of every data event of a template found in a categorical training image
+// (the search-tree idea of Strebelle 2002, "Conditional simulation of complex geological structures
+// using multiple-point statistics", Mathematical Geology 34(1)), one tree per multiple-grid level,
+// stored as flat arrays.
+//
+// Counting contract. The replicates of a data event {(offset_i, value_i)} are the unmasked TI
+// centres c for which every c + offset_i lies inside the TI, is unmasked and equals value_i. A centre
+// whose template node falls outside the TI or on a masked cell carries the symbol `missing` there,
+// which matches no value, so border centres count exactly as the contract says. Any subset of the
+// template may be asked: nodes not in the event are marginalised (every branch is followed).
+//
+// Layout. Nodes are numbered breadth first; node 0 is the root (the empty prefix) and a node at
+// depth d stands for the prefix of the first d template nodes. The children of node j are the
+// nodes [first_child[j], first_child[j + 1]), in increasing symbol order, so one sentinel at the end
+// closes every range. Per node: K uint32 counts (centres per centre category), one uint32 child
+// start and one uint8 symbol: 4 K + 5 bytes.
+#pragma once
+
+#include <cstdint>
+#include <vector>
+
+#include "core/grid.hpp"
+#include "core/template.hpp"
+
+namespace sl {
+
+// A categorical training image: codes 0..K-1, kMasked for no data.
+struct CategoricalImage {
+  static constexpr std::uint8_t kMasked = 255;
+  Ijk shape{1, 1, 1};
+  std::vector<std::uint8_t> codes;  // C order, size shape[0] * shape[1] * shape[2]
+  int categories = 0;                // K
+};
+
+// Conditional probability of the centre category given a data event, after node dropping.
+struct EventAnswer {
+  std::int64_t replicates = 0;  // centres matching the kept nodes
+  int kept = 0;                 // informed nodes kept (a prefix, in template order, of those asked)
+  bool scanned = false;         // answered by scanning the TI instead of the tree (cheaper case)
+};
+
+// Per-thread buffers for queries, reused so the hot loop does not allocate.
+struct QueryScratch {
+  std::vector<std::uint32_t> frontier, next;
+  std::vector<std::int64_t> counts, best;            // K each
+  std::vector<std::int64_t> prefix_hist;             // (m + 1) * K, for the scan
+};
+
+class PatternTree {
+ public:
+  // Builds one tree per level 0..levels-1 by scanning the TI with the template times 2**level.
+  // Throws ParameterError for an unusable TI or template and MemoryLimitError when the trees would
+  // need more than memory_limit bytes.
+  PatternTree(CategoricalImage ti, const Template& tpl, int levels, std::int64_t memory_limit);
+
+  int levels() const noexcept { return static_cast<int>(levels_.size()); }
+  int categories() const noexcept { return ti_.categories; }
+  const Template& base_template() const noexcept { return template_; }
+  std::size_t template_size() const noexcept { return template_.size(); }
+  std::int64_t node_count(int level) const;
+  std::int64_t memory_bytes() const noexcept;
+  // Centre counts per category over the whole TI (the root's counts).
+  const std::vector<std::int64_t>& category_counts() const noexcept { return root_counts_; }
+  std::int64_t centre_count() const noexcept { return static_cast<std::int64_t>(centres_.size()); }
+
+  // Counts of the centre category (written to scratch.best, K entries) for the event whose informed
+  // template indices `index` (strictly increasing) take the codes `value`, dropping informed nodes
+  // from the last while fewer than min_replicates centres match. With stop_when_pure, the search ends
+  // as soon as one category holds every match (the probabilities cannot change any more; replicates
+  // and kept then describe the node where it stopped).
+  EventAnswer query(int level, const std::int32_t* index, const std::uint8_t* value, int m,
+                    std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
+
+  // Same as query but by scanning the TI's centres (the reference path used when the tree would
+  // visit more nodes than there are centres).
+  EventAnswer scan(int level, const std::int32_t* index, const std::uint8_t* value, int m,
+                   std::int64_t min_replicates, QueryScratch& scratch) const;
+
+ private:
+  struct Level {
+    std::vector<std::uint8_t> symbol;        // per node (root: unused)
+    std::vector<std::uint32_t> first_child;  // per node + sentinel
+    std::vector<std::uint32_t> counts;       // K per node
+    std::vector<std::int64_t> delta;         // padded flat offset of each template node
+  };
+  void build_level(int level, std::int64_t memory_limit, std::int64_t& used);
+
+  CategoricalImage ti_;
+  Template template_;
+  Ijk pad_{0, 0, 0};
+  Ijk padded_shape_{1, 1, 1};
+  std::vector<std::uint8_t> padded_;       // TI with a masked border, so lookups need no bounds test
+  std::vector<std::int64_t> centres_;      // padded flat index of every unmasked TI cell
+  std::vector<std::int64_t> root_counts_;  // per category
+  std::vector<Level> levels_;
+};
+
+// Half of the physical memory: the default limit for building trees.
+std::int64_t default_memory_limit();
+
+}  // namespace sl

@@ -1,0 +1,228 @@
+#include "tree/tree_sim.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <string>
+
+#include "core/error.hpp"
+#include "core/path.hpp"
+#include "core/random.hpp"
+#include "merge/tau.hpp"
+
+namespace sl {
+
+namespace {
+
+// Nearest node of level g to cell c (half-way ties go to the lower node), kept inside the grid.
+Ijk nearest_level_node(const Grid& grid, const Ijk& c, int level) {
+  const Index s = Grid::level_step(level);
+  Ijk out{};
+  for (int a = 0; a < 3; ++a) {
+    const Index q = (c[a] + (s - 1) / 2) / s;
+    out[a] = std::min(q, grid.level_extent(level, a) - 1) * s;
+  }
+  return out;
+}
+
+struct Worker {
+  QueryScratch scratch;
+  std::vector<std::int32_t> index;
+  std::vector<std::uint8_t> value;
+  std::vector<double> probs, sources, merged;
+  std::int64_t informed = 0, kept = 0, scans = 0;
+};
+
+}  // namespace
+
+std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& grid, const std::vector<std::int16_t>& hard,
+                                        const TreeSimOptions& opt, const Poll& poll, TreeSimStats* stats) {
+  const int K = tree.categories();
+  const std::size_t Ks = static_cast<std::size_t>(K);
+  const Index N = grid.size();
+  const int levels = tree.levels();
+  const std::size_t D = tree.template_size();
+  require(hard.empty() || static_cast<Index>(hard.size()) == N, "hard", "must have the grid's shape.");
+  require(opt.min_replicates >= 1, "min_replicates", "must be at least 1.");
+  require(opt.tau.size() == opt.soft.size() + 1, "tau", "must hold one weight for the TI and one per soft source.");
+  require(opt.target.empty() || static_cast<int>(opt.target.size()) == K, "target_proportions",
+          "must hold one proportion per category.");
+  require(opt.steering >= 0 && opt.steering <= 1, "steering", "must be in [0, 1].");
+  require(opt.soft.size() <= 32, "soft", "must hold at most 32 sources.");
+
+  std::vector<std::int16_t> sim(static_cast<std::size_t>(N), -1);
+  std::vector<std::int64_t> counts(Ks, 0);  // informed cells per category (hard + simulated)
+  const auto& ti_counts = tree.category_counts();
+  if (!hard.empty()) {
+    for (Index i = 0; i < N; ++i) {
+      const std::int16_t h = hard[static_cast<std::size_t>(i)];
+      if (h < 0) continue;
+      require(h < K && ti_counts[static_cast<std::size_t>(h)] > 0, "hard",
+              "holds code " + std::to_string(h) + ", which the training image does not contain.");
+      sim[static_cast<std::size_t>(i)] = h;
+      counts[static_cast<std::size_t>(h)] += 1;
+    }
+  }
+  // Prior of the tau model: the target proportions when given, else the TI's.
+  std::vector<double> prior(Ks);
+  {
+    double total = 0;
+    for (int k = 0; k < K; ++k) total += static_cast<double>(ti_counts[static_cast<std::size_t>(k)]);
+    for (std::size_t k = 0; k < Ks; ++k)
+      prior[k] = opt.target.empty() ? static_cast<double>(ti_counts[k]) / total : opt.target[k];
+  }
+  // Steering gain: s / (1 - s), capped so that full steering stays finite.
+  const double gain = opt.target.empty() ? 0.0 : std::min(50.0, opt.steering / std::max(1e-12, 1.0 - opt.steering));
+  const int threads = resolve_threads(opt.threads);
+  std::vector<Worker> workers(static_cast<std::size_t>(threads));
+  for (auto& w : workers) {
+    w.index.resize(D);
+    w.value.resize(D);
+    w.probs.resize(Ks);
+    w.merged.resize(Ks);
+    w.sources.resize(Ks * (1 + opt.soft.size()));
+  }
+  const std::vector<Offset>& offsets = tree.base_template().offsets();
+  const int max_cond = opt.max_conditioning > 0 ? opt.max_conditioning : static_cast<int>(D);
+  if (stats) *stats = TreeSimStats{std::vector<std::int64_t>(static_cast<std::size_t>(levels), 0),
+                                   std::vector<double>(static_cast<std::size_t>(levels), 0.0),
+                                   std::vector<double>(static_cast<std::size_t>(levels), 0.0),
+                                   std::vector<std::int64_t>(static_cast<std::size_t>(levels), 0),
+                                   std::vector<std::int64_t>(static_cast<std::size_t>(levels), 0)};
+
+  WorkControl ctl;
+  ctl.total = N;
+  std::vector<Index> released;  // nodes that held relocated hard data at the previous level
+  for (int level = levels - 1; level >= 0; --level) {
+    const Index step = Grid::level_step(level);
+    // Hard data off this level's nodes are moved to the nearest free node so that the coarse
+    // structure sees them (Strebelle 2002); they are taken back once the level is done.
+    std::vector<Index> relocated;
+    if (level > 0 && !hard.empty()) {
+      for (Index i = 0; i < N; ++i) {
+        const std::int16_t h = hard[static_cast<std::size_t>(i)];
+        if (h < 0) continue;
+        const Ijk c = grid.cell(i);
+        if (Grid::on_level(c, level)) continue;
+        const Index target = grid.index(nearest_level_node(grid, c, level));
+        if (sim[static_cast<std::size_t>(target)] >= 0) continue;
+        sim[static_cast<std::size_t>(target)] = h;
+        relocated.push_back(target);
+      }
+    }
+    std::vector<Index> path = level_cells(grid, level, levels - 1);
+    path.insert(path.end(), released.begin(), released.end());
+    path.erase(std::remove_if(path.begin(), path.end(), [&](Index c) { return sim[static_cast<std::size_t>(c)] >= 0; }),
+               path.end());
+    std::sort(path.begin(), path.end());
+    shuffle_path(path, opt.seed, level);
+    const auto starts = conflict_free_batches(grid, level, tree.base_template().reach(), path, opt.max_batch);
+    std::vector<std::int64_t> snapshot(counts);  // proportions seen by one batch
+    std::int64_t informed_total = 0;
+    for (auto c : counts) informed_total += c;
+
+    auto node = [&](int wid, std::int64_t pos) {
+      Worker& w = workers[static_cast<std::size_t>(wid)];
+      const Index cell = path[static_cast<std::size_t>(pos)];
+      const Ijk c = grid.cell(cell);
+      // Data event: informed template nodes, nearest first, up to max_cond.
+      int m = 0;
+      for (std::size_t i = 0; i < D && m < max_cond; ++i) {
+        const Ijk q{c[0] + Index{offsets[i][0]} * step, c[1] + Index{offsets[i][1]} * step,
+                    c[2] + Index{offsets[i][2]} * step};
+        if (!grid.contains(q)) continue;
+        const std::int16_t v = sim[static_cast<std::size_t>(grid.index(q))];
+        if (v < 0) continue;
+        w.index[static_cast<std::size_t>(m)] = static_cast<std::int32_t>(i);
+        w.value[static_cast<std::size_t>(m)] = static_cast<std::uint8_t>(v);
+        ++m;
+      }
+      const EventAnswer ans = tree.query(level, w.index.data(), w.value.data(), m, opt.min_replicates, true, w.scratch);
+      w.informed += m;
+      w.kept += ans.kept;
+      w.scans += ans.scanned;
+      double total = 0;
+      for (std::size_t k = 0; k < Ks; ++k) total += static_cast<double>(w.scratch.best[k]);
+      for (std::size_t k = 0; k < Ks; ++k) w.probs[k] = static_cast<double>(w.scratch.best[k]) / total;
+      // Soft data by the tau model.
+      std::size_t n_src = 1;
+      bool any_soft = false;
+      for (std::size_t k = 0; k < Ks; ++k) w.sources[k] = w.probs[k];
+      for (const double* s : opt.soft) {
+        const double* p = s + static_cast<std::size_t>(cell) * Ks;
+        if (std::isnan(p[0])) continue;
+        for (std::size_t k = 0; k < Ks; ++k) w.sources[n_src * Ks + k] = p[k];
+        any_soft = true;
+        ++n_src;
+      }
+      if (any_soft) {
+        // tau of the sources actually present at this cell
+        double tau_here[64];
+        std::size_t t = 0;
+        tau_here[t++] = opt.tau[0];
+        for (std::size_t s = 0; s < opt.soft.size(); ++s)
+          if (!std::isnan(opt.soft[s][static_cast<std::size_t>(cell) * Ks])) tau_here[t++] = opt.tau[1 + s];
+        tau_merge(prior.data(), w.sources.data(), tau_here, n_src, Ks, w.merged.data());
+        w.probs.swap(w.merged);
+      }
+      // Steering toward the target proportions.
+      if (gain > 0 && informed_total > 0) {
+        double sum = 0;
+        for (std::size_t k = 0; k < Ks; ++k) {
+          const double current = static_cast<double>(snapshot[k]) / static_cast<double>(informed_total);
+          w.probs[k] = std::max(0.0, w.probs[k] + gain * (opt.target[k] - current));
+          sum += w.probs[k];
+        }
+        if (sum > 0) {
+          for (std::size_t k = 0; k < Ks; ++k) w.probs[k] /= sum;
+        } else {
+          for (std::size_t k = 0; k < Ks; ++k) w.probs[k] = opt.target[k];
+        }
+      }
+      // Draw the category.
+      const double u = uniform(opt.seed, static_cast<std::uint32_t>(level), static_cast<std::uint64_t>(cell), Stream::draw);
+      double acc = 0;
+      int pick = -1, last_positive = 0;
+      for (int k = 0; k < K; ++k) {
+        const double p = w.probs[static_cast<std::size_t>(k)];
+        if (p > 0) last_positive = k;
+        acc += p;
+        if (u < acc && p > 0) {
+          pick = k;
+          break;
+        }
+      }
+      if (pick < 0) pick = last_positive;  // rounding left u above the running sum
+      sim[static_cast<std::size_t>(cell)] = static_cast<std::int16_t>(pick);
+    };
+    auto after_batch = [&](std::size_t b) {
+      for (auto p = starts[b]; p < starts[b + 1]; ++p) {
+        counts[static_cast<std::size_t>(sim[static_cast<std::size_t>(path[static_cast<std::size_t>(p)])])] += 1;
+        ++informed_total;
+      }
+      snapshot = counts;
+    };
+    for (auto& w : workers) w.informed = w.kept = w.scans = 0;
+    run_batches(threads, starts, node, after_batch, ctl, poll);
+    if (stats) {
+      const auto L = static_cast<std::size_t>(level);
+      std::int64_t inf = 0, kept = 0, scans = 0;
+      for (auto& w : workers) {
+        inf += w.informed;
+        kept += w.kept;
+        scans += w.scans;
+      }
+      const double n = std::max<double>(1.0, static_cast<double>(path.size()));
+      stats->simulated[L] = static_cast<std::int64_t>(path.size());
+      stats->mean_informed[L] = static_cast<double>(inf) / n;
+      stats->mean_kept[L] = static_cast<double>(kept) / n;
+      stats->scans[L] = scans;
+      stats->relocated[L] = static_cast<std::int64_t>(relocated.size());
+    }
+    // Take relocated hard data back; those nodes are simulated at the next finer level.
+    for (Index r : relocated) sim[static_cast<std::size_t>(r)] = -1;
+    released.swap(relocated);
+  }
+  return sim;
+}
+
+}  // namespace sl
