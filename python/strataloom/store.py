@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import json
 import shutil
+import warnings
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -93,7 +94,12 @@ class RealizationStore:
         group.create_array("done", shape=(n,), chunks=(n,), dtype=np.uint8, fill_value=0,
                            dimension_names=("realization",))
         group.attrs["strataloom"] = attrs
-        return cls(group, p)
+        # consolidated metadata lets xarray.open_zarr read the store without a fallback warning;
+        # zarr-python warns that v3 has no spec for it yet, which is known and harmless here
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", category=UserWarning)
+            zarr.consolidate_metadata(str(p))
+        return cls(zarr.open_group(str(p), mode="r+", zarr_format=3), p)
 
     @classmethod
     def open(cls, path: str | Path, mode: str = "r+") -> RealizationStore:

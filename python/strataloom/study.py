@@ -84,9 +84,23 @@ def key_lines(text: str) -> dict[tuple, int]:
     lines: dict[tuple, int] = {}
     current: tuple = ()
     counts: dict[tuple, int] = {}
+    open_array: tuple | None = None  # key of a multi-line array being read
+    element = 0
+    depth = 0
     for no, raw in enumerate(text.splitlines(), start=1):
         line = _strip_comment(raw).strip()
         if not line:
+            continue
+        if open_array is not None:
+            # one element per line: `{ code = 0, ... },` (inline tables) or plain values
+            if line.startswith("{"):
+                lines.setdefault((*open_array, element), no)
+                for sub in re.finditer(r"[{,]\s*([A-Za-z0-9_\-]+)\s*=", line):
+                    lines.setdefault((*open_array, element, sub.group(1)), no)
+                element += line.count("}")
+            depth += line.count("[") - line.count("]")
+            if depth <= 0:
+                open_array = None
             continue
         m = re.match(r"^\[\[\s*([^\]]+?)\s*\]\]$", line)
         if m:
@@ -115,6 +129,9 @@ def key_lines(text: str) -> dict[tuple, int]:
             rest = line[m.end():]
             for sub in re.finditer(r"[{,]\s*([A-Za-z0-9_\-]+)\s*=", rest):
                 lines.setdefault((*key, sub.group(1)), no)
+            d = rest.count("[") - rest.count("]")
+            if rest.strip().startswith("[") and d > 0:
+                open_array, element, depth = key, 0, d
     return lines
 
 
@@ -295,7 +312,7 @@ class _Reader:
             raise self.error(key, f"must be a list of 3 values (z, y, x); got {_shown(value)}.")
         return tuple(conv(x, (*key, i)) for i, x in enumerate(value))
 
-    def path(self, value: Any, key: tuple, folder: Path, suffixes: tuple[str, ...]) -> Path:
+    def file(self, value: Any, key: tuple, folder: Path, suffixes: tuple[str, ...]) -> Path:
         s = self.string(value, key)
         p = Path(s)
         if not p.is_absolute():
@@ -472,7 +489,7 @@ def load_study(path: str | Path) -> Study:
     t = r.table(data["training_image"], ("training_image",), {"file": True, "variable": False})
     ti_var = r.string(t.get("variable", (categorical or list(variables))[0]),
                       ("training_image", "variable"), tuple(variables))
-    ti = TrainingImageSpec(r.path(t["file"], ("training_image", "file"), folder, (".npy",)), ti_var)
+    ti = TrainingImageSpec(r.file(t["file"], ("training_image", "file"), folder, (".npy",)), ti_var)
 
     wells_raw = data.get("wells", [])
     if not isinstance(wells_raw, list):
@@ -553,7 +570,7 @@ def _well(r: _Reader, raw: Any, i: int, folder: Path, variables: dict[str, Varia
     key = ("wells", i)
     w = r.table(raw, key, {"file": True, "name": False, "collar": False, "survey": False,
                            "columns": False})
-    f = r.path(w["file"], (*key, "file"), folder, (".csv", ".txt", ".las"))
+    f = r.file(w["file"], (*key, "file"), folder, (".csv", ".txt", ".las"))
     fmt = "las" if f.suffix.lower() == ".las" else "csv"
     name = r.string(w["name"], (*key, "name")) if "name" in w else None
     collar = None
@@ -564,7 +581,7 @@ def _well(r: _Reader, raw: Any, i: int, folder: Path, variables: dict[str, Varia
         collar = tuple(r.number(x, (*key, "collar", j)) for j, x in enumerate(c))
     survey = None
     if "survey" in w:
-        survey = r.path(w["survey"], (*key, "survey"), folder, (".csv", ".txt"))
+        survey = r.file(w["survey"], (*key, "survey"), folder, (".csv", ".txt"))
         if fmt != "las":
             raise r.error((*key, "survey"), "applies to LAS wells only (point tables hold x, y, z).")
     if fmt == "csv" and collar is not None:
@@ -598,13 +615,13 @@ def _soft(r: _Reader, raw: Any, folder: Path, variables: dict[str, Variable],
     prob = None
     attrs: tuple[Path, ...] = ()
     if "probabilities" in s:
-        prob = r.path(s["probabilities"], (*key, "probabilities"), folder, (".npy",))
+        prob = r.file(s["probabilities"], (*key, "probabilities"), folder, (".npy",))
     else:
         a = s["attributes"]
         if not isinstance(a, list) or not a:
             raise r.error((*key, "attributes"), f"must be a non-empty list of files; got "
                           f"{_shown(a)}.")
-        attrs = tuple(r.path(x, (*key, "attributes", j), folder, (".npy", ".sgy", ".segy"))
+        attrs = tuple(r.file(x, (*key, "attributes", j), folder, (".npy", ".sgy", ".segy"))
                       for j, x in enumerate(a))
     patch = r.triple(s.get("patch", [1, 2, 2]), (*key, "patch"),
                      lambda x, k: r.integer(x, k, 0, 10))

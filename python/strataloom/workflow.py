@@ -1,0 +1,380 @@
+"""A study end to end: read inputs, upscale wells, calibrate soft data, run the ensemble.
+
+:func:`prepare` turns a validated :class:`~strataloom.study.Study` into arrays (training image,
+hard data, soft probabilities); :func:`check_study` summarises them with memory and time
+estimates; :func:`run_study` writes a run folder (store.md layout).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .conditioning import (
+    Calibration,
+    HardData,
+    Well,
+    calibrate,
+    read_las,
+    read_point_table,
+    read_survey,
+    upscale,
+)
+from .engines import EngineFactory, engine_class
+from .ensemble import EnsembleResult, realization_seeds, run_ensemble
+from .errors import StudyError
+from .store import RealizationStore, realization_attrs
+from .study import Study, read_array
+
+__all__ = ["Prepared", "check_study", "prepare", "read_attribute", "run_study"]
+
+
+@dataclass
+class Prepared:
+    """A study's inputs, read and conditioned."""
+
+    study: Study
+    training_image: np.ndarray
+    wells: list[Well]
+    hard: HardData
+    soft: np.ndarray | None = None
+    calibration: Calibration | None = None
+    notes: list[str] = field(default_factory=list)
+
+    def factory(self, threads: int | None = None) -> EngineFactory:
+        """The engine recipe for this study."""
+        s = self.study
+        var = s.engine.variable
+        kind = s.variables[var].kind
+        hard = self.hard.dense(var) if len(self.hard.cells) else None
+        if hard is not None and not np.any(hard >= 0 if kind == "categorical" else np.isfinite(hard)):
+            hard = None
+        return EngineFactory(s.engine.name, var, kind, s.grid.shape, dict(s.engine.parameters),
+                             self.training_image, hard, self.soft, threads)
+
+
+def read_training_image(study: Study) -> np.ndarray:
+    """The training image, checked against the variable's facies table."""
+    spec = study.training_image
+    ti = read_array(spec.file, "training image")
+    var = study.variables[spec.variable]
+    if ti.ndim not in (2, 3) or ti.size == 0:
+        raise StudyError(f"The training image '{spec.file.name}' must be a 2-D or 3-D array; got "
+                         f"shape {ti.shape}.")
+    if var.kind == "categorical":
+        if not np.issubdtype(ti.dtype, np.integer):
+            raise StudyError(f"The training image '{spec.file.name}' must hold integer facies codes "
+                             f"for '{var.name}'; got dtype {ti.dtype}.")
+        present = sorted(int(c) for c in np.unique(ti[ti >= 0]))
+        if present != var.codes:
+            raise StudyError(f"The training image '{spec.file.name}' holds codes {present}, but the "
+                             f"facies table of '{var.name}' has codes {var.codes}; they must match.")
+    elif not np.issubdtype(ti.dtype, np.floating):
+        ti = ti.astype(np.float64)
+    return ti
+
+
+def read_wells(study: Study) -> list[Well]:
+    """Every well of the study, placed in space."""
+    names = list(study.variables)
+    out: list[Well] = []
+    for spec in study.wells:
+        if spec.format == "csv":
+            variables = [v for v in names if v in spec.columns or _has_column(spec.file, v)]
+            if not variables:
+                raise StudyError(f"The well file '{spec.file.name}' has no column for any study "
+                                 f"variable ({', '.join(names)}).")
+            out.extend(read_point_table(spec.file, variables, name=spec.name, columns=spec.columns))
+        else:
+            curves = dict(spec.columns) or {v: v for v in names}
+            survey = read_survey(spec.survey) if spec.survey is not None else None
+            out.append(read_las(spec.file, curves, name=spec.name, collar=spec.collar,
+                                survey=survey))
+    return out
+
+
+def _has_column(path: Path, name: str) -> bool:
+    try:
+        with open(path, encoding="utf-8") as f:
+            for line in f:
+                if line.strip() and not line.lstrip().startswith("#"):
+                    cols = [c.strip().lower() for c in line.replace(";", ",").replace("\t", ",")
+                            .split(",")]
+                    return name.lower() in cols
+    except OSError as e:
+        raise StudyError(f"The well file '{path}' cannot be read: {e.strerror}.") from e
+    return False
+
+
+def read_attribute(path: Path, study: Study) -> np.ndarray:
+    """An attribute cube on the grid: ``.npy`` (nz, ny, nx), or SEG-Y aligned with the grid."""
+    shape = study.grid.shape
+    if path.suffix.lower() == ".npy":
+        a = np.asarray(read_array(path, "attribute"), dtype=np.float64)
+    else:
+        try:
+            import segyio
+        except ImportError as e:
+            raise StudyError(f"Reading '{path.name}' needs segyio: pip install strataloom[segy].") \
+                from e
+        if not path.is_file():
+            raise StudyError(f"The attribute file '{path}' does not exist.")
+        try:
+            cube = np.asarray(segyio.tools.cube(str(path)), dtype=np.float64)
+        except Exception as e:
+            raise StudyError(f"The SEG-Y file '{path.name}' cannot be read as a regular cube: {e}") \
+                from e
+        soft = study.soft_data
+        axes = soft.segy_axes if soft is not None else ("y", "x", "z")
+        order = [axes.index(a) for a in ("z", "y", "x")]
+        a = np.transpose(cube, order)
+        if soft is None or soft.segy_z_downward:
+            a = a[::-1]  # samples run downwards; grid z runs upwards
+    if a.shape != shape:
+        raise StudyError(f"The attribute '{path.name}' has shape {a.shape}; the grid is {shape}.")
+    return np.ascontiguousarray(a)
+
+
+def prepare(study: Study, *, calibrate_soft: bool = True) -> Prepared:
+    """Read the study's data and condition it (upscaling, calibration)."""
+    ti = read_training_image(study)
+    wells = read_wells(study)
+    kinds = {k: v.kind for k, v in study.variables.items()}
+    cats = {k: v.codes for k, v in study.variables.items() if v.kind == "categorical"}
+    present = [k for k in kinds if all(k in w.values for w in wells)] if wells else list(kinds)
+    hard = upscale(study.grid, wells, {k: kinds[k] for k in present}, categories=cats)
+    for name, info in hard.report.per_well.items():
+        if info["inside"] == 0:
+            w = next(w for w in wells if w.name == name)
+            g = study.grid
+            lo = np.asarray(g.origin)
+            hi = lo + np.asarray(g.spacing) * np.asarray(g.shape)
+            raise StudyError(
+                f"Well '{name}' ({Path(w.source).name}) lies entirely outside the grid: x "
+                f"{w.x.min():g}..{w.x.max():g}, y {w.y.min():g}..{w.y.max():g}, z "
+                f"{w.z.min():g}..{w.z.max():g}; the grid spans x {lo[2]:g}..{hi[2]:g}, "
+                f"y {lo[1]:g}..{hi[1]:g}, z {lo[0]:g}..{hi[0]:g}.")
+    prepared = Prepared(study, ti, wells, hard)
+    sd = study.soft_data
+    if sd is not None:
+        k = len(study.variables[sd.variable].categories)
+        if sd.probabilities is not None:
+            p = np.asarray(read_array(sd.probabilities, "soft data"), dtype=np.float64)
+            if p.shape != (k, *study.grid.shape):
+                raise StudyError(f"The soft data '{sd.probabilities.name}' has shape {p.shape}; "
+                                 f"expected (K, nz, ny, nx) = {(k, *study.grid.shape)}.")
+            prepared.soft = p.astype(np.float32)
+        elif calibrate_soft:
+            cubes = [read_attribute(a, study) for a in sd.attributes]
+            labels = hard.values.get(sd.variable)
+            if labels is None:
+                raise StudyError(f"Calibration needs wells with '{sd.variable}' values.")
+            sel = labels >= 0
+            cal = calibrate(cubes, hard.flat[sel], labels[sel], hard.wells[sel], k, patch=sd.patch,
+                            components=sd.components, smoothing=sd.smoothing,
+                            regularization=sd.regularization, seed=study.ensemble.seed)
+            prepared.soft = cal.probabilities
+            prepared.calibration = cal
+    return prepared
+
+
+def _store_attrs(prepared: Prepared, seeds: list[int]) -> dict[str, Any]:
+    from . import __version__
+
+    s = prepared.study
+    var = s.engine.variable
+    hard_ref = None
+    if s.output.hard_data and len(prepared.hard.cells):
+        hard_ref = {"variable": var, "file": "hard_data.npz"}
+    return realization_attrs(
+        version=__version__, grid=s.grid, variables={var: s.variables[var].store_attrs()},
+        seeds=seeds, engine={"name": s.engine.name, "parameters": s.engine.parameters},
+        inputs=s.input_hashes(), study=_study_record(s), hard_data=hard_ref)
+
+
+def _study_record(study: Study) -> dict[str, Any]:
+    """The study as stored: run-time choices (process count) left out, so they do not block a
+    resume."""
+    rec = study.to_json()
+    rec["ensemble"].pop("processes", None)
+    return rec
+
+
+def _atomic_save_npy(path: Path, array: np.ndarray) -> None:
+    tmp = path.with_name(path.name + ".tmp.npy")
+    np.save(tmp, array)
+    os.replace(tmp, path)
+
+
+@dataclass
+class RunSummary:
+    """What :func:`run_study` did."""
+
+    out: Path
+    store: Path
+    ensemble: EnsembleResult
+    prepared: Prepared
+    extras: list[str] = field(default_factory=list)
+
+
+def run_study(study: Study, out: str | Path, *, processes: int | None = None, client: Any = None,
+              scheduler: str | None = None, progress: bool = True, overwrite: bool = False,
+              prepared: Prepared | None = None) -> RunSummary:
+    """Run a study's ensemble into the folder ``out`` (resuming a compatible earlier run).
+
+    Parameters
+    ----------
+    study : Study
+    out : path-like
+        The run folder; created if needed.
+    processes : int, optional
+        Local processes (default: the study's ``[ensemble] processes``, 0 = all cores).
+    client : distributed.Client, optional
+        Run on a Dask cluster instead.
+    scheduler : str, optional
+        Address of a Dask scheduler.
+    progress : bool, default True
+        Rich progress bars.
+    overwrite : bool, default False
+        Replace a store left by a different study.
+    prepared : Prepared, optional
+        Inputs already prepared (skips reading them again).
+    """
+    prep = prepared if prepared is not None else prepare(study)
+    out_dir = Path(out)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    n = study.ensemble.realizations
+    seeds = realization_seeds(study.ensemble.seed, n)
+    store = RealizationStore.create(out_dir / "realizations.zarr", attrs=_store_attrs(prep, seeds),
+                                    overwrite=overwrite)
+    if study.output.hard_data and len(prep.hard.cells):
+        prep.hard.save(out_dir / "hard_data.npz")
+    if study.output.soft_data and prep.soft is not None:
+        _atomic_save_npy(out_dir / "soft_data.npy", prep.soft.astype(np.float32))
+    if prep.calibration is not None:
+        cal = prep.calibration
+        text = json.dumps({"scores": cal.scores, "per_well": cal.per_well,
+                           "explained_variance": cal.explained_variance}, indent=2)
+        tmp = out_dir / "calibration.json.tmp"
+        tmp.write_text(text)
+        os.replace(tmp, out_dir / "calibration.json")
+    if processes is None:
+        processes = study.ensemble.processes or None
+    local_p = processes or os.cpu_count() or 1
+    threads = None
+    if client is None and scheduler is None:
+        threads = max(1, (os.cpu_count() or 1) // max(1, min(local_p, n)))
+    factory = prep.factory(threads=threads)
+    if engine_class(study.engine.name) is None:
+        factory()  # raises the clear "engine not in this build" error before any work
+    result = run_ensemble(factory, store, seeds, processes=processes, client=client,
+                          scheduler=scheduler, progress=progress)
+    return RunSummary(out_dir, store.path, result, prep)
+
+
+def check_study(study: Study, *, probe: bool = True, processes: int | None = None) -> list[str]:
+    """Read everything a run needs and summarise it, with memory and time estimates.
+
+    Parameters
+    ----------
+    study : Study
+    probe : bool, default True
+        Build the engine and time one small realization to estimate the run time.
+    processes : int, optional
+        Processes the estimate assumes (default: the study's, else all cores).
+    """
+    prep = prepare(study)
+    g = study.grid
+    lines = [f"study '{study.name}' ({study.path.name})",
+             f"grid {g.shape[0]} x {g.shape[1]} x {g.shape[2]} = {g.size:,} cells, spacing "
+             f"{tuple(g.spacing)}, origin {tuple(g.origin)}"]
+    ti = prep.training_image
+    var = study.variables[study.training_image.variable]
+    if var.kind == "categorical":
+        counts = np.bincount(ti[ti >= 0].ravel(), minlength=len(var.categories))
+        props = ", ".join(f"{c.name} {counts[c.code] / counts.sum():.2f}" for c in var.categories)
+        lines.append(f"training image {study.relative(study.training_image.file)}: shape "
+                     f"{ti.shape}, proportions {props}")
+    else:
+        lines.append(f"training image {study.relative(study.training_image.file)}: shape "
+                     f"{ti.shape}, mean {np.nanmean(ti):.4g}")
+    dev = sum(w.deviated for w in prep.wells)
+    lines.append(f"wells: {len(prep.wells)} ({dev} deviated)")
+    lines.extend("  " + s for s in prep.hard.report.lines())
+    if prep.calibration is not None:
+        lines.extend("soft data: " + s for s in prep.calibration.lines())
+    elif prep.soft is not None:
+        lines.append(f"soft data: {study.relative(study.soft_data.probabilities)}")  # type: ignore[union-attr]
+    n = study.ensemble.realizations
+    p = processes or study.ensemble.processes or os.cpu_count() or 1
+    p = max(1, min(p, n))
+    itemsize = 2 if study.variables[study.engine.variable].kind == "categorical" else 4
+    store_bytes = n * g.size * itemsize
+    per_proc = ti.nbytes + g.size * (8 + 4) + (0 if prep.soft is None else prep.soft.nbytes)
+    lines.append(f"engine {study.engine.name}, {n} realizations, master seed "
+                 f"{study.ensemble.seed}, {p} processes")
+    timing = None
+    if probe:
+        timing = _probe(prep, per_proc)
+        if timing is not None:
+            per_proc += timing[1]
+    lines.append(f"memory: store {_size(store_bytes)} on disk before compression, about "
+                 f"{_size(per_proc)} per process, {_size(per_proc * p)} in all")
+    if timing is not None:
+        sec_cell, _, build = timing
+        est = build + sec_cell * g.size * math.ceil(n / p)
+        lines.append(f"time: about {_duration(est)} ({sec_cell * g.size:.2f} s per realization "
+                     f"on one thread, engine build {build:.1f} s)")
+    elif probe:
+        lines.append(f"time: no estimate (the {study.engine.name} engine is not in this build)")
+    return lines
+
+
+def _probe(prep: Prepared, base: int) -> tuple[float, int, float] | None:
+    """(seconds per cell on one thread, engine bytes, engine build seconds), or None."""
+    del base
+    s = prep.study
+    if engine_class(s.engine.name) is None:
+        return None
+    nz, ny, nx = s.grid.shape
+    # a sub-grid of at most ~20,000 cells with the same layer count ratio
+    f = min(1.0, (20000 / (nz * ny * nx)) ** (1 / 3))
+    sub = (max(1, round(nz * f)), max(1, round(ny * f)), max(1, round(nx * f)))
+    var = s.engine.variable
+    k = len(s.variables[var].categories)
+    soft = None
+    if prep.soft is not None:
+        soft = np.full((k, *sub), np.nan)
+    fac = EngineFactory(s.engine.name, var, s.variables[var].kind, sub, dict(s.engine.parameters),
+                        prep.training_image, None, soft, 1)
+    t0 = time.perf_counter()
+    adapter = fac()
+    build = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    adapter.simulate(0)
+    sec = (time.perf_counter() - t0) / (sub[0] * sub[1] * sub[2])
+    mem = int(getattr(getattr(adapter, "_engine", None), "memory_bytes", 0) or 0)
+    return sec, mem, build
+
+
+def _size(b: float) -> str:
+    for unit in ("B", "KiB", "MiB", "GiB", "TiB"):
+        if b < 1024 or unit == "TiB":
+            return f"{b:.0f} {unit}" if unit == "B" else f"{b:.1f} {unit}"
+        b /= 1024
+    return f"{b:.1f} TiB"
+
+
+def _duration(s: float) -> str:
+    if s < 90:
+        return f"{s:.0f} s"
+    if s < 5400:
+        return f"{s / 60:.1f} min"
+    return f"{s / 3600:.1f} h"
