@@ -17,6 +17,7 @@ uninterrupted run's byte for byte.
 from __future__ import annotations
 
 import json
+import re
 import shutil
 import warnings
 from collections.abc import Mapping, Sequence
@@ -74,6 +75,7 @@ class RealizationStore:
             except StudyError:
                 same = False
             if same:
+                old.clean_partial_writes()
                 return old
             if not overwrite:
                 raise StudyError(f"The run folder already holds a store '{p}' from a different "
@@ -115,6 +117,16 @@ class RealizationStore:
         if not isinstance(meta, dict) or meta.get("format") != "realizations":
             raise StudyError(f"'{p}' is not a Strata Loom realizations store.")
         return cls(group, p)
+
+    def clean_partial_writes(self) -> int:
+        """Delete temporary files a killed writer left behind (zarr writes ``*.<hex>.partial``
+        then renames); returns how many. Their data are rewritten because ``done`` is still 0."""
+        n = 0
+        for f in self.path.rglob("*.partial"):
+            if re.fullmatch(r".*\.[0-9a-f]{32}\.partial", f.name):
+                f.unlink(missing_ok=True)
+                n += 1
+        return n
 
     # -- contents ------------------------------------------------------------------------------
     @property
