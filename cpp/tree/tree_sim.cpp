@@ -195,6 +195,7 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
       sim[static_cast<std::size_t>(cell)] = static_cast<std::int16_t>(pick);
     };
     auto after_batch = [&](std::size_t b) {
+      if (ctl.cancelled()) return;  // the batch may be unfinished; the run is being abandoned
       for (auto p = starts[b]; p < starts[b + 1]; ++p) {
         counts[static_cast<std::size_t>(sim[static_cast<std::size_t>(path[static_cast<std::size_t>(p)])])] += 1;
         ++informed_total;

@@ -1,0 +1,170 @@
+"""Pattern-tree simulation: structure reproduction, conditioning, soft data, proportions, threads."""
+
+import numpy as np
+import pytest
+from scipy import ndimage
+
+import strataloom as sl
+
+
+def blob_ti(shape=(1, 80, 80), sand=0.3, seed=0, sigma=3.0):
+    """Two-facies image from thresholded smoothed noise (test input, not a checked result)."""
+    rng = np.random.default_rng(seed)
+    field = ndimage.gaussian_filter(rng.standard_normal(shape), sigma=(0 if shape[0] == 1 else sigma, sigma, sigma))
+    return (field > np.quantile(field, 1 - sand)).astype(np.int8)
+
+
+def test_two_two_cell_patterns_half_each():
+    # Common practice, no source: a TI holding exactly two 2-cell patterns, (0, 1) and (1, 0);
+    # a 2-cell grid simulated 400 times shows each about half the time (binomial, 3 sigma) and
+    # never a third pattern.
+    ti = np.tile([0, 1], 20)[None, :]
+    tree = sl.PatternTree(ti, sl.Template([[0, 0, 1], [0, 0, -1]]))
+    sims = np.array([tree.simulate((1, 2), seed=s) for s in range(400)])[:, 0, :]
+    first = (sims == [0, 1]).all(axis=1).sum()
+    second = (sims == [1, 0]).all(axis=1).sum()
+    assert first + second == 400
+    assert abs(first - 200) <= 3 * np.sqrt(400 * 0.25)
+
+
+def _checkerboard(n):
+    return np.add.outer(np.arange(n), np.arange(n)) % 2
+
+
+def test_checkerboard_is_reproduced_with_enough_levels():
+    # Common practice, no source: once the coarsest template spans the grid, the TI's only
+    # patterns (a perfect checkerboard) are all the realization can hold.
+    tree = sl.PatternTree(_checkerboard(40), sl.Template.box((0, 1, 1)), levels=6)
+    for seed in range(5):
+        r = tree.simulate((32, 32), seed=seed)
+        assert np.array_equal(r, _checkerboard(32)) or np.array_equal(r, 1 - _checkerboard(32))
+
+
+def test_one_level_small_template_breaks_the_checkerboard():
+    # Measured here: with one level and a 3 x 3 template, early isolated nodes are drawn
+    # independently and conflict, which is what multiple grids are for.
+    tree = sl.PatternTree(_checkerboard(40), sl.Template.box((0, 1, 1)), levels=1)
+    perfect = 0
+    for seed in range(5):
+        r = tree.simulate((32, 32), seed=seed)
+        perfect += np.array_equal(r, _checkerboard(32)) or np.array_equal(r, 1 - _checkerboard(32))
+    assert perfect < 5
+
+
+def test_stripes_stay_unbroken():
+    # Common practice, no source: a TI of straight stripes (codes 0, 1, 2 repeating row after row)
+    # gives rows of one code, cycling in the TI's order, once the coarsest template spans the grid.
+    # Every node then sees an informed row above or below at each level, which fixes its code.
+    ti = np.repeat(np.arange(48) % 3, 48).reshape(48, 48)
+    tree = sl.PatternTree(ti, sl.Template.box((0, 1, 1)), levels=6)
+    for seed in range(3):
+        r = tree.simulate((32, 32), seed=seed)
+        assert (r == r[:, :1]).all(), "a stripe is broken"
+        assert set(((r[1:, 0] - r[:-1, 0]) % 3).tolist()) == {1}
+
+
+def test_tau_model_worked_values():
+    # Journel 2002 (Mathematical Geology 34(5)) formula with tau = 1: prior 0.5, TI 0.5, soft 0.8
+    # gives 0.8; a TI probability of 1 stays 1 whatever the soft data say.
+    np.testing.assert_allclose(sl.tau_merge([0.5, 0.5], [[0.5, 0.5], [0.8, 0.2]]), [0.8, 0.2])
+    np.testing.assert_allclose(sl.tau_merge([0.5, 0.5], [[1.0, 0.0], [0.3, 0.7]]), [1.0, 0.0])
+    # permanence of ratios with two informative sources: x/x0 = (x1/x0)(x2/x0)
+    p = sl.tau_merge([0.25, 0.75], [[0.5, 0.5], [0.5, 0.5]])
+    x0, x1 = 0.75 / 0.25, 1.0
+    np.testing.assert_allclose(p[0], 1 / (1 + x1 * x1 / x0), rtol=1e-12)
+
+
+def test_soft_data_pull_the_simulation_as_the_tau_model_says():
+    # A TI with no spatial structure (independent 50/50 cells): the TI probability equals the prior,
+    # so by the tau model (Journel 2002) the simulated share of code 1 equals the soft probability.
+    ti = np.random.default_rng(5).integers(0, 2, size=(1, 120, 120))
+    tree = sl.PatternTree(ti, sl.Template([[0, 0, 1]]), min_replicates=1)
+    soft = np.empty((2, 1, 60, 60))
+    soft[1] = 0.8
+    soft[0] = 0.2
+    shares = [tree.simulate((1, 60, 60), soft=soft, seed=s).mean() for s in range(3)]
+    assert abs(np.mean(shares) - 0.8) < 0.03
+
+
+def test_soft_data_raise_the_local_share():
+    # Tau model (Journel 2002): a soft probability of 0.9 for code 1 over a block raises the
+    # block's share of code 1 far above the TI proportion, while cells without soft data stay near it.
+    ti = blob_ti((1, 150, 150), sigma=2.0)
+    tree = sl.PatternTree(ti, sl.Template.box((0, 2, 2)), levels=2)
+    soft = np.full((2, 48, 48), np.nan)
+    soft[0, 8:40, 8:40] = 0.1
+    soft[1, 8:40, 8:40] = 0.9
+    inside = np.mean([tree.simulate((48, 48), soft=soft, seed=s)[8:40, 8:40].mean() for s in range(4)])
+    assert inside > 0.7 > ti.mean() + 0.3
+
+
+@pytest.mark.parametrize("shape", [(1, 48, 48), (6, 20, 20)])
+def test_hard_data_honoured_every_time(shape):
+    three_d = shape[0] > 1
+    ti = blob_ti((10, 40, 40) if three_d else (1, 80, 80))
+    tpl = sl.Template.ellipsoid((1.5 if three_d else 0, 3, 3), max_nodes=24)
+    tree = sl.PatternTree(ti, tpl, levels=2)
+    rng = np.random.default_rng(0)
+    hard = np.full(shape, -1, dtype=np.int16)
+    picks = rng.random(shape) < 0.03
+    hard[picks] = rng.integers(0, 2, picks.sum())
+    for seed in range(20):
+        r = tree.simulate(shape, hard=hard, seed=seed)
+        np.testing.assert_array_equal(r[picks], hard[picks])
+
+
+def test_identical_for_any_thread_count():
+    ti = blob_ti((8, 40, 40))
+    tree = sl.PatternTree(ti, sl.Template.ellipsoid((1, 3, 3), max_nodes=30), levels=3)
+    hard = np.full((8, 32, 32), -1)
+    hard[:, 16, 16] = 1
+    runs = [tree.simulate((8, 32, 32), hard=hard, seed=11, threads=t) for t in (1, 2, 4)]
+    np.testing.assert_array_equal(runs[0], runs[1])
+    np.testing.assert_array_equal(runs[0], runs[2])
+    assert not np.array_equal(runs[0], tree.simulate((8, 32, 32), hard=hard, seed=12, threads=2))
+
+
+def test_mean_proportions_follow_the_ti():
+    # Common practice, no source: without steering, the ensemble's mean proportions stay near the
+    # training image's (within 0.03 over 20 realizations).
+    ti = blob_ti((1, 150, 150), sand=0.3, sigma=2.0)
+    tree = sl.PatternTree(ti, sl.Template.ellipsoid((0, 4, 4), max_nodes=30), levels=3)
+    shares = [tree.simulate((64, 64), seed=s).mean() for s in range(20)]
+    assert abs(np.mean(shares) - ti.mean()) < 0.03
+
+
+def test_full_steering_reaches_the_target():
+    ti = blob_ti((1, 150, 150), sand=0.3, sigma=2.0)
+    tree = sl.PatternTree(ti, sl.Template.ellipsoid((0, 4, 4), max_nodes=30), levels=3)
+    shares = [tree.simulate((64, 64), seed=s, target_proportions=[0.55, 0.45], steering=1.0).mean()
+              for s in range(20)]
+    assert abs(np.mean(shares) - 0.45) < 0.02
+    # without steering the same target only sets the prior; proportions stay near the TI's
+    loose = [tree.simulate((64, 64), seed=s, target_proportions=[0.55, 0.45], steering=0.0).mean()
+             for s in range(5)]
+    assert abs(np.mean(loose) - ti.mean()) < 0.05
+
+
+def test_simulated_bodies_resemble_the_ti():
+    # Indicator variogram at short lags within a band of the TI's (common practice, no source).
+    ti = blob_ti((1, 150, 150), sand=0.3, sigma=2.0)
+    tree = sl.PatternTree(ti, sl.Template.ellipsoid((0, 4, 4), max_nodes=30), levels=3)
+
+    def gamma(a, lag):
+        return 0.5 * np.mean((a[:, lag:] != a[:, :-lag]))
+
+    for lag in (1, 3):
+        ti_g = gamma(ti[0], lag)
+        sims = [gamma(tree.simulate((64, 64), seed=s), lag) for s in range(5)]
+        assert abs(np.mean(sims) - ti_g) < 0.35 * ti_g
+    # random noise with the same proportion has a far larger short-lag variogram
+    noise = (np.random.default_rng(0).random((64, 64)) < ti.mean()).astype(int)
+    assert gamma(noise, 1) > 2 * gamma(ti[0], 1)
+
+
+def test_progress_callback_and_stats():
+    tree = sl.PatternTree(blob_ti(), sl.Template.box((0, 1, 1)), levels=2)
+    calls = []
+    tree.simulate((40, 40), seed=0, progress=lambda d, t: calls.append((d, t)))
+    assert calls and calls[-1] == (1600, 1600)
+    assert sum(tree.last_stats["simulated"]) == 1600
