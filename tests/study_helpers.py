@@ -15,8 +15,9 @@ def channel_image(shape, seed, n_channels=5, width=(1.5, 3.0)):
     z, y, x = np.mgrid[0:nz, 0:ny, 0:nx]
     out = np.zeros(shape, dtype=np.int16)
     for _ in range(n_channels):
-        c = rng.uniform(0, ny) + rng.uniform(2, 6) * np.sin(2 * np.pi * x / rng.uniform(20, 50)
-                                                            + rng.uniform(0, 6))
+        c = rng.uniform(0, ny) + rng.uniform(2, 6) * np.sin(
+            2 * np.pi * x / rng.uniform(20, 50) + rng.uniform(0, 6)
+        )
         out[(np.abs(y - c) < rng.uniform(*width)) & (np.abs(z - rng.uniform(0, nz)) < 1.5)] = 1
     return out
 
@@ -77,8 +78,9 @@ def write_small_study(folder: Path, *, shape=(4, 16, 16), n=4, soft=False) -> Pa
             rows.append(f"{name},{ix * 10 + 5},{iy * 10 + 5},{iz + 0.5},{truth[iz, iy, ix]}")
     (folder / "wells" / "points.csv").write_text("\n".join(rows) + "\n")
     md = np.arange(0.0, 12.0, 0.25)
-    (folder / "wells" / "dev_survey.csv").write_text("md,inclination,azimuth\n0,0,90\n1,0,90\n"
-                                                     "12,80,90\n")
+    (folder / "wells" / "dev_survey.csv").write_text(
+        "md,inclination,azimuth\n0,0,90\n1,0,90\n12,80,90\n"
+    )
     las = lasio.LASFile()
     las.well["NULL"].value = -999.25
     las.append_curve("DEPT", md, unit="m")

@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from study_helpers import channel_image, write_small_study
 
 from strataloom.conditioning import brier_score, calibrate, patch_features
 from strataloom.study import load_study
 from strataloom.workflow import prepare, read_attribute
+from study_helpers import channel_image, write_small_study
 
 SHAPE = (8, 40, 40)
 
@@ -55,8 +55,13 @@ def test_attribute_with_signal_beats_prior_baseline(truth):
     assert s["accuracy"] > s["baseline_accuracy"] + 0.1
     assert s["brier"] < s["baseline_brier"] - 0.1
     # the baseline is the majority facies of the other wells; check it by hand
-    base = np.mean([(np.mean(lab[names != w]) > 0.5) == lab[names == w][k]
-                    for w in np.unique(names) for k in range(SHAPE[0])])
+    base = np.mean(
+        [
+            (np.mean(lab[names != w]) > 0.5) == lab[names == w][k]
+            for w in np.unique(names)
+            for k in range(SHAPE[0])
+        ]
+    )
     assert s["baseline_accuracy"] == pytest.approx(base)
     p = cal.probabilities
     assert p.shape == (2, *SHAPE) and p.dtype == np.float32
@@ -78,13 +83,16 @@ def test_smoothing_and_patch_features(truth):
     smooth = calibrate([cube], flat, lab, names, 2, patch=(0, 1, 1), components=4, smoothing=1.5)
     np.testing.assert_allclose(smooth.probabilities.sum(axis=0), 1.0, atol=1e-5)
     # a Gaussian filter lowers the cell-to-cell variation (scipy.ndimage.gaussian_filter)
-    assert np.abs(np.diff(smooth.probabilities[1], axis=2)).mean() < \
-        0.7 * np.abs(np.diff(raw.probabilities[1], axis=2)).mean()
+    assert (
+        np.abs(np.diff(smooth.probabilities[1], axis=2)).mean()
+        < 0.7 * np.abs(np.diff(raw.probabilities[1], axis=2)).mean()
+    )
     # patch vectors are the box values in C order, mirrored at borders (numpy.pad 'symmetric')
     a = np.arange(2 * 3 * 4, dtype=float).reshape(2, 3, 4)
     f = patch_features([a], np.array([0, 23]), (0, 1, 1))
-    np.testing.assert_array_equal(f[0], np.pad(a, ((0, 0), (1, 1), (1, 1)), mode="symmetric")
-                                  [0, 0:3, 0:3].ravel())
+    np.testing.assert_array_equal(
+        f[0], np.pad(a, ((0, 0), (1, 1), (1, 1)), mode="symmetric")[0, 0:3, 0:3].ravel()
+    )
     np.testing.assert_array_equal(f[1].reshape(3, 3)[1, 1], a[1, 2, 3])
 
 
@@ -94,7 +102,7 @@ def test_calibration_rejects_bad_input(truth):
 
     with pytest.raises(StudyError, match="shape"):
         calibrate([np.zeros(SHAPE), np.zeros((2, 2, 2))], flat, lab, names, 2)
-    with pytest.raises(StudyError, match="0..1"):
+    with pytest.raises(StudyError, match=r"0\.\.1"):
         calibrate([np.zeros(SHAPE)], flat, lab + 5, names, 2)
 
 
@@ -107,8 +115,9 @@ def test_segy_attribute_aligned_with_grid(tmp_path):
     cube = np.random.default_rng(3).normal(size=(4, 16, 16)).astype(np.float32)
     # (inline, crossline, sample) = (y, x, depth) with depth running down from the top layer
     segy_data = np.ascontiguousarray(np.transpose(cube[::-1], (1, 2, 0)))
-    segyio.tools.from_array(str(tmp_path / "attr.sgy"), segy_data,
-                            format=segyio.SegySampleFormat.IEEE_FLOAT_4_BYTE)
+    segyio.tools.from_array(
+        str(tmp_path / "attr.sgy"), segy_data, format=segyio.SegySampleFormat.IEEE_FLOAT_4_BYTE
+    )
     p.write_text(p.read_text().replace('attributes = ["attr.npy"]', 'attributes = ["attr.sgy"]'))
     study = load_study(p)
     got = read_attribute(study.soft_data.attributes[0], study)

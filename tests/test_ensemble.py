@@ -11,25 +11,30 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from study_helpers import write_small_study
 
 from strataloom.ensemble import realization_seeds, run_ensemble
 from strataloom.store import RealizationStore
 from strataloom.study import load_study
 from strataloom.workflow import prepare, run_study
+from study_helpers import write_small_study
 
 
 def _tree_bytes(folder: Path) -> dict[str, bytes]:
-    return {p.relative_to(folder).as_posix(): p.read_bytes() for p in sorted(folder.rglob("*"))
-            if p.is_file()}
+    return {
+        p.relative_to(folder).as_posix(): p.read_bytes()
+        for p in sorted(folder.rglob("*"))
+        if p.is_file()
+    }
 
 
 def test_seeds_follow_numpy_seed_sequence():
     # numpy.random.SeedSequence.spawn (numpy documentation, "Parallel random number generation"):
     # child i depends on (master entropy, i) only, so seeds do not change with the ensemble size
     seeds = realization_seeds(2024, 10)
-    ref = [int(c.generate_state(1, dtype=np.uint64)[0] >> np.uint64(1))
-           for c in np.random.SeedSequence(2024).spawn(10)]
+    ref = [
+        int(c.generate_state(1, dtype=np.uint64)[0] >> np.uint64(1))
+        for c in np.random.SeedSequence(2024).spawn(10)
+    ]
     assert seeds == ref
     assert realization_seeds(2024, 4) == seeds[:4]
     assert len(set(seeds)) == 10 and all(0 <= s < 2**63 for s in seeds)
@@ -67,15 +72,26 @@ def test_small_study_end_to_end_honours_hard_data(tmp_path):
     assert tuple(arr.metadata.dimension_names) == ("realization", "z", "y", "x")
     attrs = store.attrs
     assert attrs["format"] == "realizations" and attrs["format_version"] == 1
-    assert attrs["grid"] == {"shape": [4, 16, 16], "spacing": [1.0, 10.0, 10.0],
-                             "origin": [0.0, 0.0, 0.0]}
-    assert attrs["variables"]["facies"]["categories"][1] == {"code": 1, "name": "sand",
-                                                             "colour": "#e3c16f"}
+    assert attrs["grid"] == {
+        "shape": [4, 16, 16],
+        "spacing": [1.0, 10.0, 10.0],
+        "origin": [0.0, 0.0, 0.0],
+    }
+    assert attrs["variables"]["facies"]["categories"][1] == {
+        "code": 1,
+        "name": "sand",
+        "colour": "#e3c16f",
+    }
     assert attrs["seeds"] == realization_seeds(42, 5)
     assert attrs["engine"]["name"] == "pattern_tree"
     assert attrs["hard_data"] == {"variable": "facies", "file": "hard_data.npz"}
-    assert set(attrs["inputs"]) == {"ti.npy", "attr.npy", "wells/points.csv", "wells/dev.las",
-                                    "wells/dev_survey.csv"}
+    assert set(attrs["inputs"]) == {
+        "ti.npy",
+        "attr.npy",
+        "wells/points.csv",
+        "wells/dev.las",
+        "wells/dev_survey.csv",
+    }
     assert attrs["study"]["grid"]["shape"] == [4, 16, 16]
     # readable by xarray.open_zarr (store.md contract)
     ds = xr.open_zarr(tmp_path / "run" / "realizations.zarr")
@@ -114,8 +130,12 @@ def test_dask_local_cluster_equals_local_run(tmp_path):
     p = write_small_study(tmp_path / "s", n=4)
     study = load_study(p)
     run_study(study, tmp_path / "local", processes=1, progress=False)
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=False, dashboard_address=None) \
-            as cluster, Client(cluster) as client:
+    with (
+        LocalCluster(
+            n_workers=2, threads_per_worker=1, processes=False, dashboard_address=None
+        ) as cluster,
+        Client(cluster) as client,
+    ):
         res = run_study(study, tmp_path / "dask", client=client, progress=False)
     assert sorted(res.ensemble.computed) == [0, 1, 2, 3]
     assert _tree_bytes(tmp_path / "local") == _tree_bytes(tmp_path / "dask")
@@ -132,8 +152,12 @@ def test_dask_resumes_what_a_local_run_left(tmp_path):
     store = RealizationStore.open(tmp_path / "part" / "realizations.zarr")
     store._group["done"][1] = 0  # as if realization 1 had been interrupted
     store._group["done"][3] = 0
-    with LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None) \
-            as cluster, Client(cluster) as client:
+    with (
+        LocalCluster(
+            n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None
+        ) as cluster,
+        Client(cluster) as client,
+    ):
         res = run_study(study, tmp_path / "part", client=client, progress=False, prepared=prep)
     assert sorted(res.ensemble.computed) == [1, 3]
     assert _tree_bytes(tmp_path / "full") == _tree_bytes(tmp_path / "part")
@@ -152,8 +176,18 @@ def test_killed_run_resumes_to_identical_store(tmp_path):
     ref = tmp_path / "ref"
     run_study(load_study(p), ref, processes=1, progress=False)
     out = tmp_path / "killed"
-    cmd = [sys.executable, "-m", "strataloom", "run", str(p), "--out", str(out), "--processes", "1",
-           "--no-progress"]
+    cmd = [
+        sys.executable,
+        "-m",
+        "strataloom",
+        "run",
+        str(p),
+        "--out",
+        str(out),
+        "--processes",
+        "1",
+        "--no-progress",
+    ]
     proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     store_path = out / "realizations.zarr"
     deadline = time.monotonic() + 60

@@ -8,11 +8,11 @@ import sys
 
 import numpy as np
 import pytest
-from study_helpers import write_small_study
 
 import strataloom as sl
 from strataloom.cli import main
 from strataloom.study import key_lines, load_study
+from study_helpers import write_small_study
 
 
 def _edit(path, old, new):
@@ -47,13 +47,19 @@ def test_load_valid_study_resolves_paths(tmp_path):
     js = s.to_json()
     assert js["training_image"]["file"] == "ti.npy"
     assert js["wells"][1]["survey"] == "wells/dev_survey.csv"
-    assert set(s.input_hashes()) == {"ti.npy", "wells/points.csv", "wells/dev.las",
-                                     "wells/dev_survey.csv"}
+    assert set(s.input_hashes()) == {
+        "ti.npy",
+        "wells/points.csv",
+        "wells/dev.las",
+        "wells/dev_survey.csv",
+    }
 
 
 def test_key_lines_tables_arrays_and_inline():
-    text = '[grid]\nshape = [1, 2, 3]\n\n[[wells]]\nfile = "a.csv"\n[[wells]]\n' \
-           'file = "b.las"  # c\ncolumns = { facies = "F" }\n'
+    text = (
+        '[grid]\nshape = [1, 2, 3]\n\n[[wells]]\nfile = "a.csv"\n[[wells]]\n'
+        'file = "b.las"  # c\ncolumns = { facies = "F" }\n'
+    )
     lines = key_lines(text)
     assert lines[("grid", "shape")] == 2
     assert lines[("wells", 0, "file")] == 5
@@ -70,31 +76,64 @@ def _cli_error(capsys, path):
     return err
 
 
-@pytest.mark.parametrize(("old", "new", "expect", "line_of"), [
-    # missing keys
-    ("[grid]\nshape", "[gridx]\nshape", "'gridx' is not a known key", "[gridx]"),
-    ("shape = [4, 16, 16]\n", "", "'grid' needs the key 'shape'", "[grid]"),
-    ("[ensemble]\nrealizations = 4\n", "[ensemble]\n", "needs the key 'realizations'", "[ensemble]"),
-    # wrong types
-    ("shape = [4, 16, 16]", 'shape = "4x16x16"', "'grid.shape' must be a list of 3", "shape ="),
-    ("shape = [4, 16, 16]", "shape = [4, 16.5, 16]", "'grid.shape[1]' must be an integer",
-     "shape ="),
-    ("seed = 42", "seed = -1", "'ensemble.seed' must be an integer in [0,", "seed ="),
-    ("levels = 2", 'levels = "two"', "'engine.parameters.levels' must be an integer", "levels ="),
-    ("colour = \"#e3c16f\"", "colour = \"yellow\"", "colour' must be a colour", "yellow"),
-    # unknown keys
-    ("levels = 2", "levels = 2\nlevles = 3", "'engine.parameters.levles' is not a parameter",
-     "levles"),
-    ("origin = [0.0, 0.0, 0.0]", "origin = [0.0, 0.0, 0.0]\nrotation = 10",
-     "'grid.rotation' is not a known key", "rotation"),
-    ('name = "DEV-1"', 'name = "DEV-1"\nsurvy = "x.csv"', "'wells[1].survy' is not a known key",
-     "survy"),
-    # values
-    ('name = "pattern_tree"', 'name = "kriging"', "'engine.name' must be one of", "kriging"),
-    ("{ code = 1, name", "{ code = 2, name", "must have the codes 0..1", "categories = ["),
-    ('file = "ti.npy"', 'file = "ti.txt"', "'training_image.file' must name a .npy file",
-     "ti.txt"),
-])
+@pytest.mark.parametrize(
+    ("old", "new", "expect", "line_of"),
+    [
+        # missing keys
+        ("[grid]\nshape", "[gridx]\nshape", "'gridx' is not a known key", "[gridx]"),
+        ("shape = [4, 16, 16]\n", "", "'grid' needs the key 'shape'", "[grid]"),
+        (
+            "[ensemble]\nrealizations = 4\n",
+            "[ensemble]\n",
+            "needs the key 'realizations'",
+            "[ensemble]",
+        ),
+        # wrong types
+        ("shape = [4, 16, 16]", 'shape = "4x16x16"', "'grid.shape' must be a list of 3", "shape ="),
+        (
+            "shape = [4, 16, 16]",
+            "shape = [4, 16.5, 16]",
+            "'grid.shape[1]' must be an integer",
+            "shape =",
+        ),
+        ("seed = 42", "seed = -1", "'ensemble.seed' must be an integer in [0,", "seed ="),
+        (
+            "levels = 2",
+            'levels = "two"',
+            "'engine.parameters.levels' must be an integer",
+            "levels =",
+        ),
+        ('colour = "#e3c16f"', 'colour = "yellow"', "colour' must be a colour", "yellow"),
+        # unknown keys
+        (
+            "levels = 2",
+            "levels = 2\nlevles = 3",
+            "'engine.parameters.levles' is not a parameter",
+            "levles",
+        ),
+        (
+            "origin = [0.0, 0.0, 0.0]",
+            "origin = [0.0, 0.0, 0.0]\nrotation = 10",
+            "'grid.rotation' is not a known key",
+            "rotation",
+        ),
+        (
+            'name = "DEV-1"',
+            'name = "DEV-1"\nsurvy = "x.csv"',
+            "'wells[1].survy' is not a known key",
+            "survy",
+        ),
+        # values
+        ('name = "pattern_tree"', 'name = "kriging"', "'engine.name' must be one of", "kriging"),
+        ("{ code = 1, name", "{ code = 2, name", "must have the codes 0..1", "categories = ["),
+        (
+            'file = "ti.npy"',
+            'file = "ti.txt"',
+            "'training_image.file' must name a .npy file",
+            "ti.txt",
+        ),
+    ],
+)
 def test_bad_study_one_line_naming_key_and_line(tmp_path, capsys, old, new, expect, line_of):
     p = write_small_study(tmp_path)
     _edit(p, old, new)
@@ -110,22 +149,39 @@ def test_toml_syntax_error_names_line(tmp_path, capsys):
     assert "not valid TOML" in err and f"line {_line_of(p, 'seed = = 42')}" in err
 
 
-@pytest.mark.parametrize(("setup", "expect"), [
-    (lambda d: (d / "ti.npy").unlink(), "training image file .* does not exist"),
-    (lambda d: (d / "ti.npy").write_bytes(b"not an array"), "not a readable .npy array"),
-    (lambda d: np.save(d / "ti.npy", np.array([{"a": 1}], dtype=object)),
-     "not a readable .npy array"),  # pickles are refused
-    (lambda d: (d / "wells" / "dev.las").write_text("garbage\n"), "LAS file .* cannot be read"),
-    (lambda d: (d / "wells" / "points.csv").write_text("x,y,z\n1,2,3\n"),
-     "no column for any study variable"),
-    (lambda d: (d / "wells" / "dev_survey.csv").unlink(), "survey file .* does not exist"),
-    (lambda d: np.save(d / "ti.npy", np.array([[[0, 1, 2]]], dtype=np.int16)),
-     r"holds codes \[0, 1, 2\], but the facies table of 'facies' has codes \[0, 1\]"),
-    (lambda d: np.save(d / "ti.npy", np.zeros((2, 5, 5), dtype=np.int16)),
-     r"holds codes \[0\], but the facies table"),
-    (lambda d: (d / "study.toml").write_text((d / "study.toml").read_text().replace(
-        "collar = [55.0, 45.0,", "collar = [5055.0, 45.0,")), "'DEV-1' .* lies entirely outside"),
-])
+@pytest.mark.parametrize(
+    ("setup", "expect"),
+    [
+        (lambda d: (d / "ti.npy").unlink(), "training image file .* does not exist"),
+        (lambda d: (d / "ti.npy").write_bytes(b"not an array"), "not a readable .npy array"),
+        (
+            lambda d: np.save(d / "ti.npy", np.array([{"a": 1}], dtype=object)),
+            "not a readable .npy array",
+        ),  # pickles are refused
+        (lambda d: (d / "wells" / "dev.las").write_text("garbage\n"), "LAS file .* cannot be read"),
+        (
+            lambda d: (d / "wells" / "points.csv").write_text("x,y,z\n1,2,3\n"),
+            "no column for any study variable",
+        ),
+        (lambda d: (d / "wells" / "dev_survey.csv").unlink(), "survey file .* does not exist"),
+        (
+            lambda d: np.save(d / "ti.npy", np.array([[[0, 1, 2]]], dtype=np.int16)),
+            r"holds codes \[0, 1, 2\], but the facies table of 'facies' has codes \[0, 1\]",
+        ),
+        (
+            lambda d: np.save(d / "ti.npy", np.zeros((2, 5, 5), dtype=np.int16)),
+            r"holds codes \[0\], but the facies table",
+        ),
+        (
+            lambda d: (d / "study.toml").write_text(
+                (d / "study.toml")
+                .read_text()
+                .replace("collar = [55.0, 45.0,", "collar = [5055.0, 45.0,")
+            ),
+            "'DEV-1' .* lies entirely outside",
+        ),
+    ],
+)
 def test_bad_data_files_one_line(tmp_path, capsys, setup, expect):
     import re
 
@@ -137,8 +193,12 @@ def test_bad_data_files_one_line(tmp_path, capsys, setup, expect):
 
 def test_missing_study_file_and_real_exit_code(tmp_path):
     # the installed console entry point, as a user runs it
-    out = subprocess.run([sys.executable, "-m", "strataloom", "check", str(tmp_path / "none.toml")],
-                         capture_output=True, text=True, check=False)
+    out = subprocess.run(
+        [sys.executable, "-m", "strataloom", "check", str(tmp_path / "none.toml")],
+        capture_output=True,
+        text=True,
+        check=False,
+    )
     assert out.returncode == 2
     assert len(out.stderr.strip().splitlines()) == 1
     assert "does not exist" in out.stderr

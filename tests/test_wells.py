@@ -45,8 +45,9 @@ def test_constant_build_arc_matches_circle(build_deg_per_m, azimuth):
     tq = np.radians(build_deg_per_m * q)
     hq = radius * (1 - np.cos(tq))
     exp_q = np.column_stack([hq * np.sin(a), hq * np.cos(a), radius * np.sin(tq)])
-    np.testing.assert_allclose(Survey(md, inc, np.full_like(md, azimuth)).positions(q), exp_q,
-                               atol=1e-9 * radius)
+    np.testing.assert_allclose(
+        Survey(md, inc, np.full_like(md, azimuth)).positions(q), exp_q, atol=1e-9 * radius
+    )
 
 
 def test_horizontal_turn_is_a_circle():
@@ -67,7 +68,9 @@ def test_straight_hole_trigonometry(inc, az):
     md = np.array([0.0, 12.5, 40.0, 100.0])
     pos = minimum_curvature(md, np.full(4, inc), np.full(4, az))
     i, a = np.radians(inc), np.radians(az)
-    expected = np.column_stack([md * np.sin(i) * np.sin(a), md * np.sin(i) * np.cos(a), md * np.cos(i)])
+    expected = np.column_stack(
+        [md * np.sin(i) * np.sin(a), md * np.sin(i) * np.cos(a), md * np.cos(i)]
+    )
     np.testing.assert_allclose(pos, expected, atol=1e-12)
 
 
@@ -175,14 +178,29 @@ def test_upscale_matches_brute_force():
     for i in range(5):
         n = 60
         z = rng.uniform(-10, 2, n)  # some samples above and below the grid
-        wells.append(Well(name=f"W{i}", x=np.full(n, rng.uniform(0, 60)), y=np.full(n, rng.uniform(0, 50)),
-                          z=z, values={"facies": rng.integers(0, 3, n).astype(float),
-                                       "por": rng.uniform(0, 0.3, n)},
-                          length=rng.uniform(0.1, 1.0, n)))
-    hd = upscale(grid, wells, {"facies": "categorical", "por": "continuous"},
-                 categories={"facies": [0, 1, 2]})
+        wells.append(
+            Well(
+                name=f"W{i}",
+                x=np.full(n, rng.uniform(0, 60)),
+                y=np.full(n, rng.uniform(0, 50)),
+                z=z,
+                values={
+                    "facies": rng.integers(0, 3, n).astype(float),
+                    "por": rng.uniform(0, 0.3, n),
+                },
+                length=rng.uniform(0.1, 1.0, n),
+            )
+        )
+    hd = upscale(
+        grid,
+        wells,
+        {"facies": "categorical", "por": "continuous"},
+        categories={"facies": [0, 1, 2]},
+    )
     ref = _brute_upscale(grid, wells, "facies")
-    got = {tuple(int(x) for x in c): int(v) for c, v in zip(hd.cells, hd.values["facies"], strict=True)}
+    got = {
+        tuple(int(x) for x in c): int(v) for c, v in zip(hd.cells, hd.values["facies"], strict=True)
+    }
     assert got == ref
     outside = sum(int(np.sum((w.z < -8) | (w.z >= 0))) for w in wells)
     assert hd.report.outside_total == outside
@@ -206,10 +224,16 @@ def test_upscale_matches_brute_force():
 
 def test_upscale_tie_and_unknown_code():
     grid = sl.Grid((1, 1, 2))
-    w = Well("T", x=np.array([0.5, 0.5, 1.5]), y=np.full(3, 0.5), z=np.full(3, 0.5),
-             values={"facies": np.array([1.0, 0.0, 1.0])}, length=np.ones(3))
+    w = Well(
+        "T",
+        x=np.array([0.5, 0.5, 1.5]),
+        y=np.full(3, 0.5),
+        z=np.full(3, 0.5),
+        values={"facies": np.array([1.0, 0.0, 1.0])},
+        length=np.ones(3),
+    )
     hd = upscale(grid, [w], {"facies": "categorical"})
     np.testing.assert_array_equal(hd.values["facies"], [0, 1])  # tie goes to the smaller code
     assert hd.report.conflicts[0].tie and hd.report.conflicts[0].cell == (0, 0, 0)
-    with pytest.raises(StudyError, match="code 1 .* not in the facies table"):
+    with pytest.raises(StudyError, match=r"code 1 .* not in the facies table"):
         upscale(grid, [w], {"facies": "categorical"}, categories={"facies": [0]})

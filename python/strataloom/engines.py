@@ -39,10 +39,18 @@ class _ParamError(ValueError):
 
 # parameters the study file itself understands, per engine: name -> (kind, where it goes)
 _KNOWN: dict[str, dict[str, str]] = {
-    "pattern_tree": {"template": "template", "levels": "int", "min_replicates": "int",
-                     "threads": "int"},
-    "direct_sampler": {"neighbors": "int", "accept_distance": "float", "scan_fraction": "float",
-                       "threads": "int"},
+    "pattern_tree": {
+        "template": "template",
+        "levels": "int",
+        "min_replicates": "int",
+        "threads": "int",
+    },
+    "direct_sampler": {
+        "neighbors": "int",
+        "accept_distance": "float",
+        "scan_fraction": "float",
+        "threads": "int",
+    },
 }
 _CLASS = {"pattern_tree": "PatternTree", "direct_sampler": "DirectSampler"}
 
@@ -67,8 +75,16 @@ def _accepted(name: str) -> set[str]:
             continue
         for p in sig.parameters.values():
             if p.kind in (p.KEYWORD_ONLY, p.POSITIONAL_OR_KEYWORD) and p.name not in (
-                    "self", "training_image", "ti", "shape", "hard", "soft", "auxiliary", "seed",
-                    "progress"):
+                "self",
+                "training_image",
+                "ti",
+                "shape",
+                "hard",
+                "soft",
+                "auxiliary",
+                "seed",
+                "progress",
+            ):
                 out.add(p.name)
     return out
 
@@ -83,8 +99,10 @@ def validate_parameters(name: str, params: Mapping[str, Any]) -> dict[str, Any]:
     out: dict[str, Any] = {}
     for k, val in params.items():
         if k not in accepted:
-            raise _ParamError((k,), f"is not a parameter of the {name} engine (known: "
-                              f"{', '.join(sorted(accepted))}).")
+            raise _ParamError(
+                (k,),
+                f"is not a parameter of the {name} engine (known: {', '.join(sorted(accepted))}).",
+            )
         kind = _KNOWN[name].get(k)
         if kind == "int" and (isinstance(val, bool) or not isinstance(val, int)):
             raise _ParamError((k,), f"must be an integer; got {val!r}.")
@@ -99,20 +117,32 @@ def validate_parameters(name: str, params: Mapping[str, Any]) -> dict[str, Any]:
 
 def _template_spec(val: Any) -> dict[str, Any]:
     if not isinstance(val, dict):
-        raise _ParamError(("template",), "must be a table such as {radius = [2, 6, 6], "
-                          "max_nodes = 48} or {box = [1, 2, 2]}.")
+        raise _ParamError(
+            ("template",),
+            "must be a table such as {radius = [2, 6, 6], max_nodes = 48} or {box = [1, 2, 2]}.",
+        )
     keys = set(val)
     if keys - {"radius", "max_nodes", "box"} or ("radius" in keys) == ("box" in keys):
-        raise _ParamError(("template",), "must hold either 'radius' (with optional 'max_nodes') or"
-                          f" 'box'; got keys {sorted(keys)}.")
+        raise _ParamError(
+            ("template",),
+            "must hold either 'radius' (with optional 'max_nodes') or"
+            f" 'box'; got keys {sorted(keys)}.",
+        )
     for k in ("radius", "box"):
-        if k in val and (not isinstance(val[k], list) or len(val[k]) != 3 or not all(
-                isinstance(x, int | float) and not isinstance(x, bool) for x in val[k])):
-            raise _ParamError(("template", k), f"must be a list of 3 numbers (z, y, x); got "
-                              f"{val[k]!r}.")
-    if "max_nodes" in val and (isinstance(val["max_nodes"], bool)
-                               or not isinstance(val["max_nodes"], int)):
-        raise _ParamError(("template", "max_nodes"), f"must be an integer; got {val['max_nodes']!r}.")
+        if k in val and (
+            not isinstance(val[k], list)
+            or len(val[k]) != 3
+            or not all(isinstance(x, int | float) and not isinstance(x, bool) for x in val[k])
+        ):
+            raise _ParamError(
+                ("template", k), f"must be a list of 3 numbers (z, y, x); got {val[k]!r}."
+            )
+    if "max_nodes" in val and (
+        isinstance(val["max_nodes"], bool) or not isinstance(val["max_nodes"], int)
+    ):
+        raise _ParamError(
+            ("template", "max_nodes"), f"must be an integer; got {val['max_nodes']!r}."
+        )
     return dict(val)
 
 
@@ -121,8 +151,9 @@ def _make_template(spec: Mapping[str, Any]) -> Any:
 
     if "box" in spec:
         return Template.box(tuple(int(x) for x in spec["box"]))
-    return Template.ellipsoid(tuple(float(x) for x in spec["radius"]),
-                              max_nodes=spec.get("max_nodes"))
+    return Template.ellipsoid(
+        tuple(float(x) for x in spec["radius"]), max_nodes=spec.get("max_nodes")
+    )
 
 
 def _digest(*parts: Any) -> str:
@@ -170,15 +201,25 @@ class EngineFactory:
     token: str = field(init=False, default="")
 
     def __post_init__(self) -> None:
-        self.token = _digest(self.name, self.variable, self.kind, self.shape,
-                             sorted(self.parameters.items()), self.training_image, self.hard,
-                             self.soft, self.threads)
+        self.token = _digest(
+            self.name,
+            self.variable,
+            self.kind,
+            self.shape,
+            sorted(self.parameters.items()),
+            self.training_image,
+            self.hard,
+            self.soft,
+            self.threads,
+        )
 
     def __call__(self) -> EngineAdapter:
         cls = engine_class(self.name)
         if cls is None:
-            raise StudyError(f"The {self.name.replace('_', ' ')} engine is not part of this "
-                             "strataloom build; choose another [engine] name or update strataloom.")
+            raise StudyError(
+                f"The {self.name.replace('_', ' ')} engine is not part of this "
+                "strataloom build; choose another [engine] name or update strataloom."
+            )
         params = dict(self.parameters)
         threads = params.pop("threads", self.threads)
         if self.name == "pattern_tree":
@@ -209,8 +250,9 @@ class _PatternTreeAdapter:
 
     def simulate(self, seed: int) -> dict[str, np.ndarray]:
         f = self._f
-        out = self._engine.simulate(f.shape, hard=f.hard, soft=f.soft, seed=seed,
-                                    threads=self._threads, **self._call)
+        out = self._engine.simulate(
+            f.shape, hard=f.hard, soft=f.soft, seed=seed, threads=self._threads, **self._call
+        )
         return {f.variable: np.asarray(out)}
 
 
@@ -227,6 +269,7 @@ class _DirectSamplerAdapter:
         kwargs = dict(self._call)
         if f.soft is not None:
             kwargs["auxiliary"] = f.soft
-        out = self._engine.simulate(f.shape, hard=f.hard, seed=seed, threads=self._threads,
-                                    **kwargs)
+        out = self._engine.simulate(
+            f.shape, hard=f.hard, seed=seed, threads=self._threads, **kwargs
+        )
         return {f.variable: np.asarray(out)}

@@ -117,8 +117,14 @@ class _Progress:
             TimeRemainingColumn,
         )
 
-        self._p = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
-                           TimeElapsedColumn(), TimeRemainingColumn(), transient=False)
+        self._p = Progress(
+            TextColumn("{task.description}"),
+            BarColumn(),
+            MofNCompleteColumn(),
+            TimeElapsedColumn(),
+            TimeRemainingColumn(),
+            transient=False,
+        )
         self._p.start()
         self._main = self._p.add_task(f"ensemble ({where})", total=total, completed=done)
 
@@ -159,10 +165,18 @@ def _drain(queue: Any, bars: _Progress) -> None:
         bars.step(index, done, total)
 
 
-def run_ensemble(factory: Callable[[], Any], store: RealizationStore, seeds: Sequence[int], *,
-                 processes: int | None = None, client: Any = None, scheduler: str | None = None,
-                 threads: int | None = None, progress: bool = True,
-                 on_written: Callable[[int], None] | None = None) -> EnsembleResult:
+def run_ensemble(
+    factory: Callable[[], Any],
+    store: RealizationStore,
+    seeds: Sequence[int],
+    *,
+    processes: int | None = None,
+    client: Any = None,
+    scheduler: str | None = None,
+    threads: int | None = None,
+    progress: bool = True,
+    on_written: Callable[[int], None] | None = None,
+) -> EnsembleResult:
     """Simulate the realizations the store still misses and write them.
 
     Parameters
@@ -194,7 +208,9 @@ def run_ensemble(factory: Callable[[], Any], store: RealizationStore, seeds: Seq
     """
     del threads
     if len(seeds) != store.size:
-        raise v.fail("seeds", f"{store.size} seeds, one per realization", len(seeds), "run_ensemble")
+        raise v.fail(
+            "seeds", f"{store.size} seeds, one per realization", len(seeds), "run_ensemble"
+        )
     todo = store.missing()
     already = store.size - len(todo)
     t0 = time.perf_counter()
@@ -202,11 +218,16 @@ def run_ensemble(factory: Callable[[], Any], store: RealizationStore, seeds: Seq
         try:
             from distributed import Client
         except ImportError as e:
-            raise v.fail("scheduler", "usable: install the 'cluster' extra "
-                         "(pip install strataloom[cluster])", scheduler, "run_ensemble") from e
+            raise v.fail(
+                "scheduler",
+                "usable: install the 'cluster' extra (pip install strataloom[cluster])",
+                scheduler,
+                "run_ensemble",
+            ) from e
         with Client(scheduler) as c:
-            return run_ensemble(factory, store, seeds, client=c, progress=progress,
-                                on_written=on_written)
+            return run_ensemble(
+                factory, store, seeds, client=c, progress=progress, on_written=on_written
+            )
     if client is not None:
         where = f"Dask cluster {getattr(client.scheduler, 'address', '')}".strip()
         workers = len(client.scheduler_info().get("workers", {}))
@@ -249,14 +270,16 @@ def run_ensemble(factory: Callable[[], Any], store: RealizationStore, seeds: Seq
     return EnsembleResult(todo, already, store.size, time.perf_counter() - t0, p, where)
 
 
-def _run_local(factory: Any, todo: list[int], seeds: Sequence[int], p: int, bars: _Progress
-               ) -> Iterator[tuple[int, dict[str, np.ndarray]]]:
+def _run_local(
+    factory: Any, todo: list[int], seeds: Sequence[int], p: int, bars: _Progress
+) -> Iterator[tuple[int, dict[str, np.ndarray]]]:
     ctx = mp.get_context("spawn")
     manager = ctx.Manager() if bars.enabled else None
     queue = manager.Queue() if manager is not None else None
     try:
-        with ProcessPoolExecutor(max_workers=p, mp_context=ctx, initializer=_worker_init,
-                                 initargs=(factory, queue)) as pool:
+        with ProcessPoolExecutor(
+            max_workers=p, mp_context=ctx, initializer=_worker_init, initargs=(factory, queue)
+        ) as pool:
             pending: set = set()
             it = iter(todo)
             # keep at most two tasks per worker in flight so results do not pile up in memory
@@ -278,16 +301,21 @@ def _run_local(factory: Any, todo: list[int], seeds: Sequence[int], p: int, bars
             manager.shutdown()
 
 
-def _run_dask(client: Any, factory: Any, todo: list[int], seeds: Sequence[int], bars: _Progress
-              ) -> Iterator[tuple[int, dict[str, np.ndarray]]]:
+def _run_dask(
+    client: Any, factory: Any, todo: list[int], seeds: Sequence[int], bars: _Progress
+) -> Iterator[tuple[int, dict[str, np.ndarray]]]:
     from distributed import as_completed
 
     if not todo:
         return
     remote = client.scatter(factory, broadcast=True, hash=False)
     token = getattr(factory, "token", "run")
-    futures = [client.submit(_dask_task, remote, i, int(seeds[i]), key=f"strataloom-{token}-{i}",
-                             pure=False) for i in todo]
+    futures = [
+        client.submit(
+            _dask_task, remote, i, int(seeds[i]), key=f"strataloom-{token}-{i}", pure=False
+        )
+        for i in todo
+    ]
     for fut in as_completed(futures):
         index, arrays = fut.result()
         fut.release()

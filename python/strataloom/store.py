@@ -50,8 +50,9 @@ class RealizationStore:
 
     # -- creation ------------------------------------------------------------------------------
     @classmethod
-    def create(cls, path: str | Path, *, attrs: Mapping[str, Any], overwrite: bool = False
-               ) -> RealizationStore:
+    def create(
+        cls, path: str | Path, *, attrs: Mapping[str, Any], overwrite: bool = False
+    ) -> RealizationStore:
         """Create a store, or reopen a compatible one (same attributes) to resume it.
 
         Parameters
@@ -78,9 +79,11 @@ class RealizationStore:
                 old.clean_partial_writes()
                 return old
             if not overwrite:
-                raise StudyError(f"The run folder already holds a store '{p}' from a different "
-                                 "study, inputs or version; choose a new --out folder or pass "
-                                 "--overwrite.")
+                raise StudyError(
+                    f"The run folder already holds a store '{p}' from a different "
+                    "study, inputs or version; choose a new --out folder or pass "
+                    "--overwrite."
+                )
             shutil.rmtree(p)
         shape = tuple(int(s) for s in attrs["grid"]["shape"])
         n = len(attrs["seeds"])
@@ -90,11 +93,22 @@ class RealizationStore:
                 dtype, fill = np.int16, -1
             else:
                 dtype, fill = np.float32, float("nan")
-            group.create_array(name, shape=(n, *shape), chunks=_chunks(shape, np.dtype(dtype).itemsize),
-                               dtype=dtype, fill_value=fill,
-                               dimension_names=("realization", "z", "y", "x"))
-        group.create_array("done", shape=(n,), chunks=(n,), dtype=np.uint8, fill_value=0,
-                           dimension_names=("realization",))
+            group.create_array(
+                name,
+                shape=(n, *shape),
+                chunks=_chunks(shape, np.dtype(dtype).itemsize),
+                dtype=dtype,
+                fill_value=fill,
+                dimension_names=("realization", "z", "y", "x"),
+            )
+        group.create_array(
+            "done",
+            shape=(n,),
+            chunks=(n,),
+            dtype=np.uint8,
+            fill_value=0,
+            dimension_names=("realization",),
+        )
         group.attrs["strataloom"] = attrs
         # consolidated metadata lets xarray.open_zarr read the store without a fallback warning;
         # zarr-python warns that v3 has no spec for it yet, which is known and harmless here
@@ -164,8 +178,10 @@ class RealizationStore:
                 raise StudyError(f"The engine returned no '{name}' for realization {index}.")
             a = np.asarray(arrays[name])
             if a.shape != shape:
-                raise StudyError(f"The engine returned '{name}' of shape {a.shape} for realization "
-                                 f"{index}; the grid is {shape}.")
+                raise StudyError(
+                    f"The engine returned '{name}' of shape {a.shape} for realization "
+                    f"{index}; the grid is {shape}."
+                )
             if spec["kind"] == "categorical":
                 if a.size and (a.min() < -1 or a.max() > np.iinfo(np.int16).max):
                     raise StudyError(f"Realization {index} of '{name}' holds codes out of range.")
@@ -185,17 +201,32 @@ class RealizationStore:
         return self._group[variable]
 
 
-def realization_attrs(*, version: str, grid: Any, variables: Mapping[str, Any],
-                      seeds: Sequence[int], engine: Mapping[str, Any], inputs: Mapping[str, str],
-                      study: Mapping[str, Any], hard_data: Mapping[str, Any] | None
-                      ) -> dict[str, Any]:
+def realization_attrs(
+    *,
+    version: str,
+    grid: Any,
+    variables: Mapping[str, Any],
+    seeds: Sequence[int],
+    engine: Mapping[str, Any],
+    inputs: Mapping[str, str],
+    study: Mapping[str, Any],
+    hard_data: Mapping[str, Any] | None,
+) -> dict[str, Any]:
     """The ``strataloom`` group attribute of store.md."""
     out: dict[str, Any] = {
-        "format": "realizations", "format_version": FORMAT_VERSION, "version": version,
-        "grid": {"shape": list(grid.shape), "spacing": list(grid.spacing),
-                 "origin": list(grid.origin)},
-        "variables": dict(variables), "seeds": [int(s) for s in seeds],
-        "engine": dict(engine), "inputs": dict(inputs), "study": dict(study),
+        "format": "realizations",
+        "format_version": FORMAT_VERSION,
+        "version": version,
+        "grid": {
+            "shape": list(grid.shape),
+            "spacing": list(grid.spacing),
+            "origin": list(grid.origin),
+        },
+        "variables": dict(variables),
+        "seeds": [int(s) for s in seeds],
+        "engine": dict(engine),
+        "inputs": dict(inputs),
+        "study": dict(study),
     }
     if hard_data is not None:
         out["hard_data"] = dict(hard_data)

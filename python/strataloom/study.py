@@ -58,6 +58,7 @@ _MAX_CELLS = 2**31 - 1
 # ----------------------------------------------------------------------------------------------
 # line numbers of keys (tomllib gives values only)
 
+
 def _strip_comment(line: str) -> str:
     out, quote = [], None
     for ch in line:
@@ -117,7 +118,7 @@ def key_lines(text: str) -> dict[tuple, int]:
             # a sub-table of the last array-of-tables entry: [wells.x] after [[wells]]
             for base, n in counts.items():
                 if parts[: len(base)] == base and len(parts) > len(base):
-                    parts = (*base, n - 1, *parts[len(base):])
+                    parts = (*base, n - 1, *parts[len(base) :])
                     break
             current = parts
             lines.setdefault(current, no)
@@ -126,7 +127,7 @@ def key_lines(text: str) -> dict[tuple, int]:
         if m:
             key = (*current, *_split_key(m.group(1)))
             lines.setdefault(key, no)
-            rest = line[m.end():]
+            rest = line[m.end() :]
             for sub in re.finditer(r"[{,]\s*([A-Za-z0-9_\-]+)\s*=", rest):
                 lines.setdefault((*key, sub.group(1)), no)
             d = rest.count("[") - rest.count("]")
@@ -137,6 +138,7 @@ def key_lines(text: str) -> dict[tuple, int]:
 
 # ----------------------------------------------------------------------------------------------
 # validated pieces
+
 
 @dataclass(frozen=True)
 class Category:
@@ -236,6 +238,7 @@ class OutputSpec:
 # ----------------------------------------------------------------------------------------------
 # the reader
 
+
 class _Reader:
     """Typed access to the parsed TOML with errors naming the key and line."""
 
@@ -269,14 +272,18 @@ class _Reader:
         for k in value:
             if k not in allowed:
                 names = ", ".join(sorted(allowed))
-                raise self.error((*key, k), f"is not a known key of [{self.dotted(key) or 'study'}]"
-                                 f" (known keys: {names}).")
+                raise self.error(
+                    (*key, k),
+                    f"is not a known key of [{self.dotted(key) or 'study'}] (known keys: {names}).",
+                )
         for k, required in allowed.items():
             if required and k not in value:
                 raise self.error(key, f"needs the key '{k}'.")
         return value
 
-    def integer(self, value: Any, key: tuple, low: int | None = None, high: int | None = None) -> int:
+    def integer(
+        self, value: Any, key: tuple, low: int | None = None, high: int | None = None
+    ) -> int:
         if isinstance(value, bool) or not isinstance(value, int):
             raise self.error(key, f"must be an integer; got {_shown(value)}.")
         if (low is not None and value < low) or (high is not None and value > high):
@@ -284,13 +291,18 @@ class _Reader:
             raise self.error(key, f"must be an integer {rng}; got {value}.")
         return int(value)
 
-    def number(self, value: Any, key: tuple, low: float | None = None, positive: bool = False) -> float:
+    def number(
+        self, value: Any, key: tuple, low: float | None = None, positive: bool = False
+    ) -> float:
         if isinstance(value, bool) or not isinstance(value, numbers.Real):
             raise self.error(key, f"must be a number; got {_shown(value)}.")
         x = float(value)
         if not math.isfinite(x) or (positive and x <= 0) or (low is not None and x < low):
-            need = "a positive number" if positive else (f"a number >= {low:g}" if low is not None
-                                                         else "a finite number")
+            need = (
+                "a positive number"
+                if positive
+                else (f"a number >= {low:g}" if low is not None else "a finite number")
+            )
             raise self.error(key, f"must be {need}; got {value}.")
         return x
 
@@ -298,8 +310,9 @@ class _Reader:
         if not isinstance(value, str):
             raise self.error(key, f"must be a string; got {_shown(value)}.")
         if choices is not None and value not in choices:
-            raise self.error(key, f"must be one of {', '.join(repr(c) for c in choices)}; "
-                             f"got {value!r}.")
+            raise self.error(
+                key, f"must be one of {', '.join(repr(c) for c in choices)}; got {value!r}."
+            )
         return value
 
     def boolean(self, value: Any, key: tuple) -> bool:
@@ -323,8 +336,14 @@ class _Reader:
 
 
 def _shown(value: Any) -> str:
-    kind = {dict: "a table", list: "a list", str: "a string", bool: "a boolean", int: "an integer",
-            float: "a number"}.get(type(value), type(value).__name__)
+    kind = {
+        dict: "a table",
+        list: "a list",
+        str: "a string",
+        bool: "a boolean",
+        int: "an integer",
+        float: "a number",
+    }.get(type(value), type(value).__name__)
     text = repr(value)
     return f"{kind} {text}" if len(text) <= 40 else kind
 
@@ -382,34 +401,65 @@ class Study:
 
     def to_json(self) -> dict[str, Any]:
         """The validated study as plain JSON types (paths relative to the study folder)."""
+
         def rel(p: Path | None) -> str | None:
             return None if p is None else self.relative(p)
 
         soft = None
         if self.soft_data is not None:
             s = self.soft_data
-            soft = {"variable": s.variable, "probabilities": rel(s.probabilities),
-                    "attributes": [rel(a) for a in s.attributes], "patch": list(s.patch),
-                    "components": s.components, "smoothing": s.smoothing,
-                    "regularization": s.regularization,
-                    "segy": {"axes": list(s.segy_axes), "z_downward": s.segy_z_downward}}
+            soft = {
+                "variable": s.variable,
+                "probabilities": rel(s.probabilities),
+                "attributes": [rel(a) for a in s.attributes],
+                "patch": list(s.patch),
+                "components": s.components,
+                "smoothing": s.smoothing,
+                "regularization": s.regularization,
+                "segy": {"axes": list(s.segy_axes), "z_downward": s.segy_z_downward},
+            }
         return {
-            "name": self.name, "description": self.description,
-            "grid": {"shape": list(self.grid.shape), "spacing": list(self.grid.spacing),
-                     "origin": list(self.grid.origin)},
-            "variables": {k: {"kind": v.kind, "units": v.units,
-                              "categories": [asdict(c) for c in v.categories]}
-                          for k, v in self.variables.items()},
-            "training_image": {"file": rel(self.training_image.file),
-                               "variable": self.training_image.variable},
-            "wells": [{"file": rel(w.file), "format": w.format, "name": w.name,
-                       "collar": None if w.collar is None else list(w.collar),
-                       "survey": rel(w.survey), "columns": dict(w.columns)} for w in self.wells],
+            "name": self.name,
+            "description": self.description,
+            "grid": {
+                "shape": list(self.grid.shape),
+                "spacing": list(self.grid.spacing),
+                "origin": list(self.grid.origin),
+            },
+            "variables": {
+                k: {
+                    "kind": v.kind,
+                    "units": v.units,
+                    "categories": [asdict(c) for c in v.categories],
+                }
+                for k, v in self.variables.items()
+            },
+            "training_image": {
+                "file": rel(self.training_image.file),
+                "variable": self.training_image.variable,
+            },
+            "wells": [
+                {
+                    "file": rel(w.file),
+                    "format": w.format,
+                    "name": w.name,
+                    "collar": None if w.collar is None else list(w.collar),
+                    "survey": rel(w.survey),
+                    "columns": dict(w.columns),
+                }
+                for w in self.wells
+            ],
             "soft_data": soft,
-            "engine": {"name": self.engine.name, "variable": self.engine.variable,
-                       "parameters": _jsonable(self.engine.parameters)},
-            "ensemble": {"realizations": self.ensemble.realizations, "seed": self.ensemble.seed,
-                         "processes": self.ensemble.processes},
+            "engine": {
+                "name": self.engine.name,
+                "variable": self.engine.variable,
+                "parameters": _jsonable(self.engine.parameters),
+            },
+            "ensemble": {
+                "realizations": self.ensemble.realizations,
+                "seed": self.ensemble.seed,
+                "processes": self.ensemble.processes,
+            },
             "output": asdict(self.output),
         }
 
@@ -429,8 +479,17 @@ def _sha256(p: Path) -> str:
     return h.hexdigest()
 
 
-_TOP = {"study": False, "grid": True, "variables": True, "training_image": True, "wells": False,
-        "soft_data": False, "engine": True, "ensemble": True, "output": False}
+_TOP = {
+    "study": False,
+    "grid": True,
+    "variables": True,
+    "training_image": True,
+    "wells": False,
+    "soft_data": False,
+    "engine": True,
+    "ensemble": True,
+    "output": False,
+}
 
 
 def load_study(path: str | Path) -> Study:
@@ -478,8 +537,11 @@ def load_study(path: str | Path) -> Study:
     shape = r.triple(g["shape"], ("grid", "shape"), lambda x, k: r.integer(x, k, low=1))
     if math.prod(shape) > _MAX_CELLS:
         raise r.error(("grid", "shape"), f"has {math.prod(shape)} cells; at most {_MAX_CELLS}.")
-    spacing = r.triple(g.get("spacing", [1.0, 1.0, 1.0]), ("grid", "spacing"),
-                       lambda x, k: r.number(x, k, positive=True))
+    spacing = r.triple(
+        g.get("spacing", [1.0, 1.0, 1.0]),
+        ("grid", "spacing"),
+        lambda x, k: r.number(x, k, positive=True),
+    )
     origin = r.triple(g.get("origin", [0.0, 0.0, 0.0]), ("grid", "origin"), r.number)
     grid = Grid(shape, spacing, origin)
 
@@ -487,8 +549,11 @@ def load_study(path: str | Path) -> Study:
     categorical = [k for k, v in variables.items() if v.kind == "categorical"]
 
     t = r.table(data["training_image"], ("training_image",), {"file": True, "variable": False})
-    ti_var = r.string(t.get("variable", (categorical or list(variables))[0]),
-                      ("training_image", "variable"), tuple(variables))
+    ti_var = r.string(
+        t.get("variable", (categorical or list(variables))[0]),
+        ("training_image", "variable"),
+        tuple(variables),
+    )
     ti = TrainingImageSpec(r.file(t["file"], ("training_image", "file"), folder, (".npy",)), ti_var)
 
     wells_raw = data.get("wells", [])
@@ -514,15 +579,21 @@ def load_study(path: str | Path) -> Study:
         key = ("engine", "parameters", *getattr(err, "key", ()))
         raise r.error(key, str(err)) from err
     if ename == "pattern_tree" and variables[evar].kind != "categorical":
-        raise r.error(("engine", "variable"), f"names '{evar}', which is continuous; the pattern "
-                      "tree simulates a categorical variable.")
+        raise r.error(
+            ("engine", "variable"),
+            f"names '{evar}', which is continuous; the pattern "
+            "tree simulates a categorical variable.",
+        )
     engine = EngineSpec(ename, evar, params)
 
-    en = r.table(data["ensemble"], ("ensemble",), {"realizations": True, "seed": True,
-                                                   "processes": False})
-    ensemble = EnsembleSpec(r.integer(en["realizations"], ("ensemble", "realizations"), 1, 100000),
-                            r.integer(en["seed"], ("ensemble", "seed"), 0, 2**63 - 1),
-                            r.integer(en.get("processes", 0), ("ensemble", "processes"), 0, 1024))
+    en = r.table(
+        data["ensemble"], ("ensemble",), {"realizations": True, "seed": True, "processes": False}
+    )
+    ensemble = EnsembleSpec(
+        r.integer(en["realizations"], ("ensemble", "realizations"), 1, 100000),
+        r.integer(en["seed"], ("ensemble", "seed"), 0, 2**63 - 1),
+        r.integer(en.get("processes", 0), ("ensemble", "processes"), 0, 1024),
+    )
 
     o = r.table(data.get("output", {}), ("output",), {k: False for k in asdict(OutputSpec())})
     output = OutputSpec(**{k: r.boolean(v, ("output", k)) for k, v in o.items()})
@@ -557,8 +628,11 @@ def _variables(r: _Reader, raw: Any) -> dict[str, Variable]:
                 cats.append(Category(code, cname, colour))
             codes = sorted(c.code for c in cats)
             if codes != list(range(len(cats))):
-                raise r.error((*key, "categories"), f"must have the codes 0..{len(cats) - 1}, each "
-                              f"once; got {[c.code for c in cats]}.")
+                raise r.error(
+                    (*key, "categories"),
+                    f"must have the codes 0..{len(cats) - 1}, each "
+                    f"once; got {[c.code for c in cats]}.",
+                )
             cats.sort(key=lambda c: c.code)
         elif "categories" in s:
             raise r.error((*key, "categories"), "is only for categorical variables.")
@@ -568,8 +642,9 @@ def _variables(r: _Reader, raw: Any) -> dict[str, Variable]:
 
 def _well(r: _Reader, raw: Any, i: int, folder: Path, variables: dict[str, Variable]) -> WellSpec:
     key = ("wells", i)
-    w = r.table(raw, key, {"file": True, "name": False, "collar": False, "survey": False,
-                           "columns": False})
+    w = r.table(
+        raw, key, {"file": True, "name": False, "collar": False, "survey": False, "columns": False}
+    )
     f = r.file(w["file"], (*key, "file"), folder, (".csv", ".txt", ".las"))
     fmt = "las" if f.suffix.lower() == ".las" else "csv"
     name = r.string(w["name"], (*key, "name")) if "name" in w else None
@@ -583,35 +658,55 @@ def _well(r: _Reader, raw: Any, i: int, folder: Path, variables: dict[str, Varia
     if "survey" in w:
         survey = r.file(w["survey"], (*key, "survey"), folder, (".csv", ".txt"))
         if fmt != "las":
-            raise r.error((*key, "survey"), "applies to LAS wells only (point tables hold x, y, z).")
+            raise r.error(
+                (*key, "survey"), "applies to LAS wells only (point tables hold x, y, z)."
+            )
     if fmt == "csv" and collar is not None:
         raise r.error((*key, "collar"), "applies to LAS wells only (point tables hold x, y, z).")
     cols = w.get("columns", {})
     if not isinstance(cols, dict):
-        raise r.error((*key, "columns"), f"must be a table {{variable = \"column\"}}; got "
-                      f"{_shown(cols)}.")
+        raise r.error(
+            (*key, "columns"), f'must be a table {{variable = "column"}}; got {_shown(cols)}.'
+        )
     allowed = set(variables) | ({"x", "y", "z", "well"} if fmt == "csv" else set())
     columns = {}
     for k, val in cols.items():
         if k not in allowed:
-            raise r.error((*key, "columns", k), f"is not a variable of the study (variables: "
-                          f"{', '.join(sorted(allowed))}).")
+            raise r.error(
+                (*key, "columns", k),
+                f"is not a variable of the study (variables: {', '.join(sorted(allowed))}).",
+            )
         columns[k] = r.string(val, (*key, "columns", k))
     return WellSpec(f, fmt, name, collar, survey, columns)  # type: ignore[arg-type]
 
 
-def _soft(r: _Reader, raw: Any, folder: Path, variables: dict[str, Variable],
-          categorical: list[str]) -> SoftDataSpec:
+def _soft(
+    r: _Reader, raw: Any, folder: Path, variables: dict[str, Variable], categorical: list[str]
+) -> SoftDataSpec:
     key = ("soft_data",)
-    s = r.table(raw, key, {"variable": False, "probabilities": False, "attributes": False,
-                           "patch": False, "components": False, "smoothing": False,
-                           "regularization": False, "segy": False})
+    s = r.table(
+        raw,
+        key,
+        {
+            "variable": False,
+            "probabilities": False,
+            "attributes": False,
+            "patch": False,
+            "components": False,
+            "smoothing": False,
+            "regularization": False,
+            "segy": False,
+        },
+    )
     if not categorical:
         raise r.error(key, "needs a categorical variable to give probabilities for.")
     var = r.string(s.get("variable", categorical[0]), (*key, "variable"), tuple(categorical))
     if ("probabilities" in s) == ("attributes" in s):
-        raise r.error(key, "needs exactly one of 'probabilities' (a ready cube) or 'attributes' "
-                      "(cubes to calibrate).")
+        raise r.error(
+            key,
+            "needs exactly one of 'probabilities' (a ready cube) or 'attributes' "
+            "(cubes to calibrate).",
+        )
     prob = None
     attrs: tuple[Path, ...] = ()
     if "probabilities" in s:
@@ -619,25 +714,37 @@ def _soft(r: _Reader, raw: Any, folder: Path, variables: dict[str, Variable],
     else:
         a = s["attributes"]
         if not isinstance(a, list) or not a:
-            raise r.error((*key, "attributes"), f"must be a non-empty list of files; got "
-                          f"{_shown(a)}.")
-        attrs = tuple(r.file(x, (*key, "attributes", j), folder, (".npy", ".sgy", ".segy"))
-                      for j, x in enumerate(a))
-    patch = r.triple(s.get("patch", [1, 2, 2]), (*key, "patch"),
-                     lambda x, k: r.integer(x, k, 0, 10))
+            raise r.error(
+                (*key, "attributes"), f"must be a non-empty list of files; got {_shown(a)}."
+            )
+        attrs = tuple(
+            r.file(x, (*key, "attributes", j), folder, (".npy", ".sgy", ".segy"))
+            for j, x in enumerate(a)
+        )
+    patch = r.triple(
+        s.get("patch", [1, 2, 2]), (*key, "patch"), lambda x, k: r.integer(x, k, 0, 10)
+    )
     segy = r.table(s.get("segy", {}), (*key, "segy"), {"axes": False, "z_downward": False})
     axes = segy.get("axes", ["y", "x", "z"])
     if not isinstance(axes, list) or sorted(axes) != ["x", "y", "z"]:
-        raise r.error((*key, "segy", "axes"), f"must list the grid axes of the inline, crossline "
-                      f"and sample directions, e.g. [\"y\", \"x\", \"z\"]; got {_shown(axes)}.")
+        raise r.error(
+            (*key, "segy", "axes"),
+            f"must list the grid axes of the inline, crossline "
+            f'and sample directions, e.g. ["y", "x", "z"]; got {_shown(axes)}.',
+        )
     return SoftDataSpec(
-        variable=var, probabilities=prob, attributes=attrs, patch=patch,
+        variable=var,
+        probabilities=prob,
+        attributes=attrs,
+        patch=patch,
         components=r.integer(s.get("components", 8), (*key, "components"), 1, 500),
         smoothing=r.number(s.get("smoothing", 0.0), (*key, "smoothing"), low=0.0),
-        regularization=r.number(s.get("regularization", 1.0), (*key, "regularization"),
-                                positive=True),
+        regularization=r.number(
+            s.get("regularization", 1.0), (*key, "regularization"), positive=True
+        ),
         segy_axes=tuple(axes),  # type: ignore[arg-type]
-        segy_z_downward=r.boolean(segy.get("z_downward", True), (*key, "segy", "z_downward")))
+        segy_z_downward=r.boolean(segy.get("z_downward", True), (*key, "segy", "z_downward")),
+    )
 
 
 def read_array(path: Path, what: str) -> np.ndarray:

@@ -54,10 +54,21 @@ class Prepared:
         var = s.engine.variable
         kind = s.variables[var].kind
         hard = self.hard.dense(var) if len(self.hard.cells) else None
-        if hard is not None and not np.any(hard >= 0 if kind == "categorical" else np.isfinite(hard)):
+        if hard is not None and not np.any(
+            hard >= 0 if kind == "categorical" else np.isfinite(hard)
+        ):
             hard = None
-        return EngineFactory(s.engine.name, var, kind, s.grid.shape, dict(s.engine.parameters),
-                             self.training_image, hard, self.soft, threads)
+        return EngineFactory(
+            s.engine.name,
+            var,
+            kind,
+            s.grid.shape,
+            dict(s.engine.parameters),
+            self.training_image,
+            hard,
+            self.soft,
+            threads,
+        )
 
 
 def read_training_image(study: Study) -> np.ndarray:
@@ -66,16 +77,22 @@ def read_training_image(study: Study) -> np.ndarray:
     ti = read_array(spec.file, "training image")
     var = study.variables[spec.variable]
     if ti.ndim not in (2, 3) or ti.size == 0:
-        raise StudyError(f"The training image '{spec.file.name}' must be a 2-D or 3-D array; got "
-                         f"shape {ti.shape}.")
+        raise StudyError(
+            f"The training image '{spec.file.name}' must be a 2-D or 3-D array; got "
+            f"shape {ti.shape}."
+        )
     if var.kind == "categorical":
         if not np.issubdtype(ti.dtype, np.integer):
-            raise StudyError(f"The training image '{spec.file.name}' must hold integer facies codes "
-                             f"for '{var.name}'; got dtype {ti.dtype}.")
+            raise StudyError(
+                f"The training image '{spec.file.name}' must hold integer facies codes "
+                f"for '{var.name}'; got dtype {ti.dtype}."
+            )
         present = sorted(int(c) for c in np.unique(ti[ti >= 0]))
         if present != var.codes:
-            raise StudyError(f"The training image '{spec.file.name}' holds codes {present}, but the "
-                             f"facies table of '{var.name}' has codes {var.codes}; they must match.")
+            raise StudyError(
+                f"The training image '{spec.file.name}' holds codes {present}, but the "
+                f"facies table of '{var.name}' has codes {var.codes}; they must match."
+            )
     elif not np.issubdtype(ti.dtype, np.floating):
         ti = ti.astype(np.float64)
     return ti
@@ -89,14 +106,17 @@ def read_wells(study: Study) -> list[Well]:
         if spec.format == "csv":
             variables = [v for v in names if v in spec.columns or _has_column(spec.file, v)]
             if not variables:
-                raise StudyError(f"The well file '{spec.file.name}' has no column for any study "
-                                 f"variable ({', '.join(names)}).")
+                raise StudyError(
+                    f"The well file '{spec.file.name}' has no column for any study "
+                    f"variable ({', '.join(names)})."
+                )
             out.extend(read_point_table(spec.file, variables, name=spec.name, columns=spec.columns))
         else:
             curves = dict(spec.columns) or {v: v for v in names}
             survey = read_survey(spec.survey) if spec.survey is not None else None
-            out.append(read_las(spec.file, curves, name=spec.name, collar=spec.collar,
-                                survey=survey))
+            out.append(
+                read_las(spec.file, curves, name=spec.name, collar=spec.collar, survey=survey)
+            )
     return out
 
 
@@ -105,8 +125,10 @@ def _has_column(path: Path, name: str) -> bool:
         with open(path, encoding="utf-8") as f:
             for line in f:
                 if line.strip() and not line.lstrip().startswith("#"):
-                    cols = [c.strip().lower() for c in line.replace(";", ",").replace("\t", ",")
-                            .split(",")]
+                    cols = [
+                        c.strip().lower()
+                        for c in line.replace(";", ",").replace("\t", ",").split(",")
+                    ]
                     return name.lower() in cols
     except OSError as e:
         raise StudyError(f"The well file '{path}' cannot be read: {e.strerror}.") from e
@@ -122,15 +144,17 @@ def read_attribute(path: Path, study: Study) -> np.ndarray:
         try:
             import segyio
         except ImportError as e:
-            raise StudyError(f"Reading '{path.name}' needs segyio: pip install strataloom[segy].") \
-                from e
+            raise StudyError(
+                f"Reading '{path.name}' needs segyio: pip install strataloom[segy]."
+            ) from e
         if not path.is_file():
             raise StudyError(f"The attribute file '{path}' does not exist.")
         try:
             cube = np.asarray(segyio.tools.cube(str(path)), dtype=np.float64)
         except Exception as e:
-            raise StudyError(f"The SEG-Y file '{path.name}' cannot be read as a regular cube: {e}") \
-                from e
+            raise StudyError(
+                f"The SEG-Y file '{path.name}' cannot be read as a regular cube: {e}"
+            ) from e
         soft = study.soft_data
         axes = soft.segy_axes if soft is not None else ("y", "x", "z")
         order = [axes.index(a) for a in ("z", "y", "x")]
@@ -160,7 +184,8 @@ def prepare(study: Study, *, calibrate_soft: bool = True) -> Prepared:
                 f"Well '{name}' ({Path(w.source).name}) lies entirely outside the grid: x "
                 f"{w.x.min():g}..{w.x.max():g}, y {w.y.min():g}..{w.y.max():g}, z "
                 f"{w.z.min():g}..{w.z.max():g}; the grid spans x {lo[2]:g}..{hi[2]:g}, "
-                f"y {lo[1]:g}..{hi[1]:g}, z {lo[0]:g}..{hi[0]:g}.")
+                f"y {lo[1]:g}..{hi[1]:g}, z {lo[0]:g}..{hi[0]:g}."
+            )
     prepared = Prepared(study, ti, wells, hard)
     sd = study.soft_data
     if sd is not None:
@@ -168,8 +193,10 @@ def prepare(study: Study, *, calibrate_soft: bool = True) -> Prepared:
         if sd.probabilities is not None:
             p = np.asarray(read_array(sd.probabilities, "soft data"), dtype=np.float64)
             if p.shape != (k, *study.grid.shape):
-                raise StudyError(f"The soft data '{sd.probabilities.name}' has shape {p.shape}; "
-                                 f"expected (K, nz, ny, nx) = {(k, *study.grid.shape)}.")
+                raise StudyError(
+                    f"The soft data '{sd.probabilities.name}' has shape {p.shape}; "
+                    f"expected (K, nz, ny, nx) = {(k, *study.grid.shape)}."
+                )
             prepared.soft = p.astype(np.float32)
         elif calibrate_soft:
             cubes = [read_attribute(a, study) for a in sd.attributes]
@@ -177,9 +204,18 @@ def prepare(study: Study, *, calibrate_soft: bool = True) -> Prepared:
             if labels is None:
                 raise StudyError(f"Calibration needs wells with '{sd.variable}' values.")
             sel = labels >= 0
-            cal = calibrate(cubes, hard.flat[sel], labels[sel], hard.wells[sel], k, patch=sd.patch,
-                            components=sd.components, smoothing=sd.smoothing,
-                            regularization=sd.regularization, seed=study.ensemble.seed)
+            cal = calibrate(
+                cubes,
+                hard.flat[sel],
+                labels[sel],
+                hard.wells[sel],
+                k,
+                patch=sd.patch,
+                components=sd.components,
+                smoothing=sd.smoothing,
+                regularization=sd.regularization,
+                seed=study.ensemble.seed,
+            )
             prepared.soft = cal.probabilities
             prepared.calibration = cal
     return prepared
@@ -194,9 +230,15 @@ def _store_attrs(prepared: Prepared, seeds: list[int]) -> dict[str, Any]:
     if s.output.hard_data and len(prepared.hard.cells):
         hard_ref = {"variable": var, "file": "hard_data.npz"}
     return realization_attrs(
-        version=__version__, grid=s.grid, variables={var: s.variables[var].store_attrs()},
-        seeds=seeds, engine={"name": s.engine.name, "parameters": s.engine.parameters},
-        inputs=s.input_hashes(), study=_study_record(s), hard_data=hard_ref)
+        version=__version__,
+        grid=s.grid,
+        variables={var: s.variables[var].store_attrs()},
+        seeds=seeds,
+        engine={"name": s.engine.name, "parameters": s.engine.parameters},
+        inputs=s.input_hashes(),
+        study=_study_record(s),
+        hard_data=hard_ref,
+    )
 
 
 def _study_record(study: Study) -> dict[str, Any]:
@@ -224,9 +266,17 @@ class RunSummary:
     extras: list[str] = field(default_factory=list)
 
 
-def run_study(study: Study, out: str | Path, *, processes: int | None = None, client: Any = None,
-              scheduler: str | None = None, progress: bool = True, overwrite: bool = False,
-              prepared: Prepared | None = None) -> RunSummary:
+def run_study(
+    study: Study,
+    out: str | Path,
+    *,
+    processes: int | None = None,
+    client: Any = None,
+    scheduler: str | None = None,
+    progress: bool = True,
+    overwrite: bool = False,
+    prepared: Prepared | None = None,
+) -> RunSummary:
     """Run a study's ensemble into the folder ``out`` (resuming a compatible earlier run).
 
     Parameters
@@ -252,16 +302,23 @@ def run_study(study: Study, out: str | Path, *, processes: int | None = None, cl
     out_dir.mkdir(parents=True, exist_ok=True)
     n = study.ensemble.realizations
     seeds = realization_seeds(study.ensemble.seed, n)
-    store = RealizationStore.create(out_dir / "realizations.zarr", attrs=_store_attrs(prep, seeds),
-                                    overwrite=overwrite)
+    store = RealizationStore.create(
+        out_dir / "realizations.zarr", attrs=_store_attrs(prep, seeds), overwrite=overwrite
+    )
     if study.output.hard_data and len(prep.hard.cells):
         prep.hard.save(out_dir / "hard_data.npz")
     if study.output.soft_data and prep.soft is not None:
         _atomic_save_npy(out_dir / "soft_data.npy", prep.soft.astype(np.float32))
     if prep.calibration is not None:
         cal = prep.calibration
-        text = json.dumps({"scores": cal.scores, "per_well": cal.per_well,
-                           "explained_variance": cal.explained_variance}, indent=2)
+        text = json.dumps(
+            {
+                "scores": cal.scores,
+                "per_well": cal.per_well,
+                "explained_variance": cal.explained_variance,
+            },
+            indent=2,
+        )
         tmp = out_dir / "calibration.json.tmp"
         tmp.write_text(text)
         os.replace(tmp, out_dir / "calibration.json")
@@ -274,12 +331,25 @@ def run_study(study: Study, out: str | Path, *, processes: int | None = None, cl
     factory = prep.factory(threads=threads)
     if engine_class(study.engine.name) is None:
         factory()  # raises the clear "engine not in this build" error before any work
-    result = run_ensemble(factory, store, seeds, processes=processes, client=client,
-                          scheduler=scheduler, progress=progress)
+    result = run_ensemble(
+        factory,
+        store,
+        seeds,
+        processes=processes,
+        client=client,
+        scheduler=scheduler,
+        progress=progress,
+    )
     return RunSummary(out_dir, store.path, result, prep)
 
 
-def check_study(study: Study, *, probe: bool = True, processes: int | None = None) -> list[str]:
+def check_study(
+    study: Study,
+    *,
+    probe: bool = True,
+    processes: int | None = None,
+    prepared: Prepared | None = None,
+) -> list[str]:
     """Read everything a run needs and summarise it, with memory and time estimates.
 
     Parameters
@@ -289,22 +359,30 @@ def check_study(study: Study, *, probe: bool = True, processes: int | None = Non
         Build the engine and time one small realization to estimate the run time.
     processes : int, optional
         Processes the estimate assumes (default: the study's, else all cores).
+    prepared : Prepared, optional
+        Inputs already prepared (skips reading them again).
     """
-    prep = prepare(study)
+    prep = prepared if prepared is not None else prepare(study)
     g = study.grid
-    lines = [f"study '{study.name}' ({study.path.name})",
-             f"grid {g.shape[0]} x {g.shape[1]} x {g.shape[2]} = {g.size:,} cells, spacing "
-             f"{tuple(g.spacing)}, origin {tuple(g.origin)}"]
+    lines = [
+        f"study '{study.name}' ({study.path.name})",
+        f"grid {g.shape[0]} x {g.shape[1]} x {g.shape[2]} = {g.size:,} cells, spacing "
+        f"{tuple(g.spacing)}, origin {tuple(g.origin)}",
+    ]
     ti = prep.training_image
     var = study.variables[study.training_image.variable]
     if var.kind == "categorical":
         counts = np.bincount(ti[ti >= 0].ravel(), minlength=len(var.categories))
         props = ", ".join(f"{c.name} {counts[c.code] / counts.sum():.2f}" for c in var.categories)
-        lines.append(f"training image {study.relative(study.training_image.file)}: shape "
-                     f"{ti.shape}, proportions {props}")
+        lines.append(
+            f"training image {study.relative(study.training_image.file)}: shape "
+            f"{ti.shape}, proportions {props}"
+        )
     else:
-        lines.append(f"training image {study.relative(study.training_image.file)}: shape "
-                     f"{ti.shape}, mean {np.nanmean(ti):.4g}")
+        lines.append(
+            f"training image {study.relative(study.training_image.file)}: shape "
+            f"{ti.shape}, mean {np.nanmean(ti):.4g}"
+        )
     dev = sum(w.deviated for w in prep.wells)
     lines.append(f"wells: {len(prep.wells)} ({dev} deviated)")
     lines.extend("  " + s for s in prep.hard.report.lines())
@@ -318,20 +396,26 @@ def check_study(study: Study, *, probe: bool = True, processes: int | None = Non
     itemsize = 2 if study.variables[study.engine.variable].kind == "categorical" else 4
     store_bytes = n * g.size * itemsize
     per_proc = ti.nbytes + g.size * (8 + 4) + (0 if prep.soft is None else prep.soft.nbytes)
-    lines.append(f"engine {study.engine.name}, {n} realizations, master seed "
-                 f"{study.ensemble.seed}, {p} processes")
+    lines.append(
+        f"engine {study.engine.name}, {n} realizations, master seed "
+        f"{study.ensemble.seed}, {p} processes"
+    )
     timing = None
     if probe:
         timing = _probe(prep, per_proc)
         if timing is not None:
             per_proc += timing[1]
-    lines.append(f"memory: store {_size(store_bytes)} on disk before compression, about "
-                 f"{_size(per_proc)} per process, {_size(per_proc * p)} in all")
+    lines.append(
+        f"memory: store {_size(store_bytes)} on disk before compression, about "
+        f"{_size(per_proc)} per process, {_size(per_proc * p)} in all"
+    )
     if timing is not None:
         sec_cell, _, build = timing
         est = build + sec_cell * g.size * math.ceil(n / p)
-        lines.append(f"time: about {_duration(est)} ({sec_cell * g.size:.2f} s per realization "
-                     f"on one thread, engine build {build:.1f} s)")
+        lines.append(
+            f"time: about {_duration(est)} ({sec_cell * g.size:.2f} s per realization "
+            f"on one thread, engine build {build:.1f} s)"
+        )
     elif probe:
         lines.append(f"time: no estimate (the {study.engine.name} engine is not in this build)")
     return lines
@@ -352,8 +436,17 @@ def _probe(prep: Prepared, base: int) -> tuple[float, int, float] | None:
     soft = None
     if prep.soft is not None:
         soft = np.full((k, *sub), np.nan)
-    fac = EngineFactory(s.engine.name, var, s.variables[var].kind, sub, dict(s.engine.parameters),
-                        prep.training_image, None, soft, 1)
+    fac = EngineFactory(
+        s.engine.name,
+        var,
+        s.variables[var].kind,
+        sub,
+        dict(s.engine.parameters),
+        prep.training_image,
+        None,
+        soft,
+        1,
+    )
     t0 = time.perf_counter()
     adapter = fac()
     build = time.perf_counter() - t0

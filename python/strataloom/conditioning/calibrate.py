@@ -53,8 +53,9 @@ def _standardised(cubes: Sequence[np.ndarray], shape: tuple[int, int, int]) -> l
     return out
 
 
-def patch_features(cubes: Sequence[np.ndarray], flat: np.ndarray, patch: tuple[int, int, int]
-                   ) -> np.ndarray:
+def patch_features(
+    cubes: Sequence[np.ndarray], flat: np.ndarray, patch: tuple[int, int, int]
+) -> np.ndarray:
     """Patch vectors of the cells ``flat``: every cube's values in the box of half-sizes ``patch``.
 
     Borders are mirrored. Returns ``(len(flat), n_cubes * prod(2 * patch + 1))`` float64.
@@ -65,7 +66,9 @@ def patch_features(cubes: Sequence[np.ndarray], flat: np.ndarray, patch: tuple[i
     feats = []
     for c in cubes:
         padded = np.pad(c, ((pz, pz), (py, py), (px, px)), mode="symmetric")
-        view = np.lib.stride_tricks.sliding_window_view(padded, (2 * pz + 1, 2 * py + 1, 2 * px + 1))
+        view = np.lib.stride_tricks.sliding_window_view(
+            padded, (2 * pz + 1, 2 * py + 1, 2 * px + 1)
+        )
         feats.append(view[idx].reshape(len(flat), -1))
     return np.concatenate(feats, axis=1)
 
@@ -94,12 +97,16 @@ class Calibration:
 
     def lines(self) -> list[str]:
         s = self.scores
-        out = [f"calibration on {s['cells']:.0f} cells of {s['wells']:.0f} wells, PCA keeps "
-               f"{100 * self.explained_variance:.0f}% of the patch variance"]
+        out = [
+            f"calibration on {s['cells']:.0f} cells of {s['wells']:.0f} wells, PCA keeps "
+            f"{100 * self.explained_variance:.0f}% of the patch variance"
+        ]
         if np.isfinite(s["accuracy"]):
-            out.append(f"leave-one-well-out accuracy {s['accuracy']:.3f} (prior baseline "
-                       f"{s['baseline_accuracy']:.3f}), Brier score {s['brier']:.3f} (baseline "
-                       f"{s['baseline_brier']:.3f})")
+            out.append(
+                f"leave-one-well-out accuracy {s['accuracy']:.3f} (prior baseline "
+                f"{s['baseline_accuracy']:.3f}), Brier score {s['brier']:.3f} (baseline "
+                f"{s['baseline_brier']:.3f})"
+            )
         else:
             out.append("leave-one-well-out scores need at least two wells")
         return out
@@ -128,10 +135,20 @@ def _predict(fitted: Any, features: np.ndarray, k: int) -> np.ndarray:
     return out
 
 
-def calibrate(cubes: Sequence[np.ndarray], cells_flat: np.ndarray, labels: np.ndarray,
-              wells: np.ndarray, n_categories: int, *, patch: Sequence[int] = (1, 2, 2),
-              components: int = 8, smoothing: float = 0.0, regularization: float = 1.0,
-              pca_cells: int = 20000, seed: int = 0) -> Calibration:
+def calibrate(
+    cubes: Sequence[np.ndarray],
+    cells_flat: np.ndarray,
+    labels: np.ndarray,
+    wells: np.ndarray,
+    n_categories: int,
+    *,
+    patch: Sequence[int] = (1, 2, 2),
+    components: int = 8,
+    smoothing: float = 0.0,
+    regularization: float = 1.0,
+    pca_cells: int = 20000,
+    seed: int = 0,
+) -> Calibration:
     """Fit facies probabilities from attribute cubes and upscaled well facies.
 
     Parameters
@@ -205,14 +222,24 @@ def calibrate(cubes: Sequence[np.ndarray], cells_flat: np.ndarray, labels: np.nd
             p_all[test] = _predict(fitted, x_well[test], k)
             prior = np.bincount(y[~test], minlength=k) / np.sum(~test)
             p_base[test] = prior
-            per_well[name] = {"accuracy": float(np.mean(np.argmax(p_all[test], 1) == y[test])),
-                              "brier": brier_score(p_all[test], y[test]), "cells": int(test.sum())}
-        scores = {"accuracy": float(np.mean(np.argmax(p_all, 1) == y)), "brier": brier_score(p_all, y),
-                  "baseline_accuracy": float(np.mean(np.argmax(p_base, 1) == y)),
-                  "baseline_brier": brier_score(p_base, y)}
+            per_well[name] = {
+                "accuracy": float(np.mean(np.argmax(p_all[test], 1) == y[test])),
+                "brier": brier_score(p_all[test], y[test]),
+                "cells": int(test.sum()),
+            }
+        scores = {
+            "accuracy": float(np.mean(np.argmax(p_all, 1) == y)),
+            "brier": brier_score(p_all, y),
+            "baseline_accuracy": float(np.mean(np.argmax(p_base, 1) == y)),
+            "baseline_brier": brier_score(p_base, y),
+        }
     else:
-        scores = {"accuracy": float("nan"), "brier": float("nan"),
-                  "baseline_accuracy": float("nan"), "baseline_brier": float("nan")}
+        scores = {
+            "accuracy": float("nan"),
+            "brier": float("nan"),
+            "baseline_accuracy": float("nan"),
+            "baseline_brier": float("nan"),
+        }
     scores["wells"] = float(len(names))
     scores["cells"] = float(len(flat))
 
@@ -231,5 +258,9 @@ def calibrate(cubes: Sequence[np.ndarray], cells_flat: np.ndarray, labels: np.nd
         for i in range(k):
             probs[i] = gaussian_filter(probs[i], sigma=sigma, mode="reflect")
         probs /= probs.sum(axis=0, keepdims=True)
-    return Calibration(probabilities=probs.astype(np.float32), scores=scores, per_well=per_well,
-                       explained_variance=float(np.sum(pca.explained_variance_ratio_)))
+    return Calibration(
+        probabilities=probs.astype(np.float32),
+        scores=scores,
+        per_well=per_well,
+        explained_variance=float(np.sum(pca.explained_variance_ratio_)),
+    )

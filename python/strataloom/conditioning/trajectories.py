@@ -74,13 +74,21 @@ class Survey:
         inc = _column(inclination, "inclination")
         azi = _column(azimuth, "azimuth")
         if not (len(md_a) == len(inc) == len(azi)):
-            raise v.fail("survey", "md, inclination and azimuth columns of equal length",
-                         (len(md_a), len(inc), len(azi)), "Survey")
+            raise v.fail(
+                "survey",
+                "md, inclination and azimuth columns of equal length",
+                (len(md_a), len(inc), len(azi)),
+                "Survey",
+            )
         if len(md_a) > 1 and np.any(np.diff(md_a) <= 0):
             raise v.fail("md", "strictly increasing measured depths", md_a.tolist()[:6], "Survey")
         if np.any((inc < 0) | (inc > 180)):
-            raise v.fail("inclination", "degrees in [0, 180]", float(inc[(inc < 0) | (inc > 180)][0]),
-                         "Survey")
+            raise v.fail(
+                "inclination",
+                "degrees in [0, 180]",
+                float(inc[(inc < 0) | (inc > 180)][0]),
+                "Survey",
+            )
         self.md = md_a
         self._t = _unit_vectors(np.radians(inc), np.radians(azi))
         n = len(md_a)
@@ -102,7 +110,7 @@ class Survey:
         station's direction.
         """
         q = np.atleast_1d(np.asarray(md, dtype=np.float64))
-        out = np.empty(q.shape + (3,))
+        out = np.empty((*q.shape, 3))
         n = len(self.md)
         seg = np.clip(np.searchsorted(self.md, q, side="right") - 1, 0, max(n - 2, 0))
         if n == 1:
@@ -119,7 +127,8 @@ class Survey:
         curved = beta > 1e-9
         sb = np.sin(beta[curved])
         tq[curved] = (np.sin(beta[curved] - phi[curved]) / sb)[:, None] * t1[curved] + (
-            np.sin(phi[curved]) / sb)[:, None] * t2[curved]
+            np.sin(phi[curved]) / sb
+        )[:, None] * t2[curved]
         tq[~curved] = t1[~curved]
         rf = _ratio_factor(phi)
         out[:] = p1 + ((q - m1) * rf / 2.0)[:, None] * (t1 + tq)
@@ -139,7 +148,11 @@ class Survey:
 def _column(values: Any, name: str) -> np.ndarray:
     a = np.asarray(values, dtype=np.float64)
     if a.ndim != 1 or a.size == 0:
-        raise v.fail(name, "a non-empty 1-D column of numbers", f"an array of shape {a.shape}", "Survey")
+        raise v.fail(
+            name, "a non-empty 1-D column of numbers", f"an array of shape {a.shape}", "Survey"
+        )
     if not np.all(np.isfinite(a)):
-        raise v.fail(name, "finite numbers (no missing values)", "a column with NaN or inf", "Survey")
+        raise v.fail(
+            name, "finite numbers (no missing values)", "a column with NaN or inf", "Survey"
+        )
     return np.ascontiguousarray(a)

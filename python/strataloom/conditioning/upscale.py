@@ -34,9 +34,11 @@ class Conflict:
 
     def describe(self) -> str:
         kind = "tie" if self.tie else "mixed"
-        return (f"cell {self.cell} {self.variable}: codes {list(self.codes)} from "
-                f"{', '.join(self.wells)} ({kind}); kept {self.chosen} "
-                f"({100 * self.fraction:.0f}% of the length)")
+        return (
+            f"cell {self.cell} {self.variable}: codes {list(self.codes)} from "
+            f"{', '.join(self.wells)} ({kind}); kept {self.chosen} "
+            f"({100 * self.fraction:.0f}% of the length)"
+        )
 
 
 @dataclass
@@ -56,7 +58,9 @@ class UpscaleReport:
 
     def lines(self, limit: int = 10) -> list[str]:
         """A short human-readable summary."""
-        out = [f"{self.samples} samples, {self.inside} inside the grid, {self.cells} cells informed"]
+        out = [
+            f"{self.samples} samples, {self.inside} inside the grid, {self.cells} cells informed"
+        ]
         if self.outside_total:
             parts = ", ".join(f"{w}: {n}" for w, n in self.outside.items() if n)
             out.append(f"{self.outside_total} samples outside the grid ({parts})")
@@ -111,7 +115,7 @@ class HardData:
         return out
 
     def save(self, path: str | Path) -> None:
-        """Write ``cells`` and ``values_<variable>`` arrays to an ``.npz`` file (store.md layout)."""
+        """Write ``cells`` and ``values_<variable>`` arrays to an ``.npz`` file (store.md)."""
         arrays = {"cells": self.cells.astype(np.int64)}
         for var, vals in self.values.items():
             if self.kinds[var] == "categorical":
@@ -124,8 +128,13 @@ class HardData:
         tmp.replace(path)
 
 
-def upscale(grid: Grid, wells: Sequence[Well], variables: Mapping[str, str], *,
-            categories: Mapping[str, Sequence[int]] | None = None) -> HardData:
+def upscale(
+    grid: Grid,
+    wells: Sequence[Well],
+    variables: Mapping[str, str],
+    *,
+    categories: Mapping[str, Sequence[int]] | None = None,
+) -> HardData:
     """Upscale well samples to grid cells.
 
     Parameters
@@ -144,10 +153,18 @@ def upscale(grid: Grid, wells: Sequence[Well], variables: Mapping[str, str], *,
     categories = dict(categories or {})
     if not wells:
         empty = np.zeros((0, 3), dtype=np.int64)
-        vals = {v: (np.zeros(0, np.int64) if k == "categorical" else np.zeros(0)) for v, k in
-                variables.items()}
-        return HardData(grid.shape, empty, vals, np.zeros(0, dtype=str), dict(variables),
-                        UpscaleReport(0, 0, {}, 0))
+        vals = {
+            v: (np.zeros(0, np.int64) if k == "categorical" else np.zeros(0))
+            for v, k in variables.items()
+        }
+        return HardData(
+            grid.shape,
+            empty,
+            vals,
+            np.zeros(0, dtype=str),
+            dict(variables),
+            UpscaleReport(0, 0, {}, 0),
+        )
     pts = np.concatenate([w.points() for w in wells])
     weights = np.concatenate([w.length for w in wells])
     owner = np.concatenate([np.full(w.size, i) for i, w in enumerate(wells)])
@@ -165,7 +182,9 @@ def upscale(grid: Grid, wells: Sequence[Well], variables: Mapping[str, str], *,
         parts = []
         for w in wells:
             if var not in w.values:
-                raise StudyError(f"Well '{w.name}' ({w.source}) has no values for variable '{var}'.")
+                raise StudyError(
+                    f"Well '{w.name}' ({w.source}) has no values for variable '{var}'."
+                )
             parts.append(np.asarray(w.values[var], dtype=np.float64))
         data[var] = np.concatenate(parts)
 
@@ -186,8 +205,11 @@ def upscale(grid: Grid, wells: Sequence[Well], variables: Mapping[str, str], *,
 
     conflicts: list[Conflict] = []
     values: dict[str, np.ndarray] = {}
-    cell_rows = (np.stack(np.unravel_index(informed, grid.shape), axis=1).astype(np.int64) if m
-                 else np.zeros((0, 3), dtype=np.int64))
+    cell_rows = (
+        np.stack(np.unravel_index(informed, grid.shape), axis=1).astype(np.int64)
+        if m
+        else np.zeros((0, 3), dtype=np.int64)
+    )
     for var, kind in variables.items():
         x = data[var]
         ok = keep & np.isfinite(x)
@@ -196,8 +218,10 @@ def upscale(grid: Grid, wells: Sequence[Well], variables: Mapping[str, str], *,
             if np.any(codes != np.round(codes)):
                 bad = int(np.flatnonzero(codes != np.round(codes))[0])
                 w = names[owner[ok][bad]]
-                raise StudyError(f"Well '{w}' has a non-integer code {codes[bad]!r} for categorical "
-                                 f"variable '{var}'.")
+                raise StudyError(
+                    f"Well '{w}' has a non-integer code {codes[bad]!r} for categorical "
+                    f"variable '{var}'."
+                )
             codes = codes.astype(np.int64)
             allowed = categories.get(var)
             if allowed is not None:
@@ -205,8 +229,10 @@ def upscale(grid: Grid, wells: Sequence[Well], variables: Mapping[str, str], *,
                 if np.any(unknown):
                     bad = int(np.flatnonzero(unknown)[0])
                     w = names[owner[ok][bad]]
-                    raise StudyError(f"Well '{w}' has code {codes[bad]} for '{var}', which is not in "
-                                     f"the facies table (codes {sorted(allowed)}).")
+                    raise StudyError(
+                        f"Well '{w}' has code {codes[bad]} for '{var}', which is not in "
+                        f"the facies table (codes {sorted(allowed)})."
+                    )
             out = np.full(m, -1, dtype=np.int64)
             if codes.size:
                 uc, code_idx = np.unique(codes, return_inverse=True)
@@ -220,11 +246,17 @@ def upscale(grid: Grid, wells: Sequence[Well], variables: Mapping[str, str], *,
                     row = tally[j]
                     top = row.max()
                     in_cell = (slot == j) & ok
-                    conflicts.append(Conflict(
-                        cell=tuple(int(c) for c in cell_rows[j]), variable=var, chosen=int(uc[best[j]]),
-                        fraction=float(top / row.sum()), codes=tuple(int(c) for c in uc[row > 0]),
-                        wells=tuple(dict.fromkeys(names[o] for o in owner[in_cell])),
-                        tie=bool(np.sum(row == top) > 1)))
+                    conflicts.append(
+                        Conflict(
+                            cell=tuple(int(c) for c in cell_rows[j]),
+                            variable=var,
+                            chosen=int(uc[best[j]]),
+                            fraction=float(top / row.sum()),
+                            codes=tuple(int(c) for c in uc[row > 0]),
+                            wells=tuple(dict.fromkeys(names[o] for o in owner[in_cell])),
+                            tie=bool(np.sum(row == top) > 1),
+                        )
+                    )
             values[var] = out
         else:
             s = np.bincount(slot[ok], weights=weights[ok] * x[ok], minlength=m)
@@ -238,7 +270,14 @@ def upscale(grid: Grid, wells: Sequence[Well], variables: Mapping[str, str], *,
         per_well.setdefault(w.name, {"samples": 0, "inside": 0})
         per_well[w.name]["samples"] += int(sel.sum())
         per_well[w.name]["inside"] += int((sel & inside).sum())
-    report = UpscaleReport(samples=len(pts), inside=int(inside.sum()), outside=outside, cells=m,
-                           conflicts=conflicts, per_well=per_well)
-    return HardData(grid.shape, cell_rows, values, np.asarray(cell_well, dtype=str), dict(variables),
-                    report)
+    report = UpscaleReport(
+        samples=len(pts),
+        inside=int(inside.sum()),
+        outside=outside,
+        cells=m,
+        conflicts=conflicts,
+        per_well=per_well,
+    )
+    return HardData(
+        grid.shape, cell_rows, values, np.asarray(cell_well, dtype=str), dict(variables), report
+    )

@@ -58,7 +58,7 @@ class Well:
     @property
     def size(self) -> int:
         """Number of samples."""
-        return int(len(self.x))
+        return len(self.x)
 
     def points(self) -> np.ndarray:
         """``(n, 3)`` sample coordinates in grid order ``(z, y, x)``."""
@@ -91,8 +91,10 @@ def _numeric(frame, column: str, path: Path) -> np.ndarray:
     bad = col.isna() & frame[column].notna()
     if bad.any():
         row = int(np.flatnonzero(bad.to_numpy())[0])
-        raise StudyError(f"Column '{column}' of '{path}' must hold numbers; row {row + 2} holds "
-                         f"{frame[column].iloc[row]!r}.")
+        raise StudyError(
+            f"Column '{column}' of '{path}' must hold numbers; row {row + 2} holds "
+            f"{frame[column].iloc[row]!r}."
+        )
     return col.to_numpy(dtype=np.float64)
 
 
@@ -104,12 +106,17 @@ def read_survey(path: str | os.PathLike) -> Survey:
     p = Path(path)
     frame = _read_csv(p, "survey")
     cols = {}
-    for key, names in {"md": ("md", "measured_depth"), "inclination": ("inclination", "inc"),
-                       "azimuth": ("azimuth", "azi")}.items():
+    for key, names in {
+        "md": ("md", "measured_depth"),
+        "inclination": ("inclination", "inc"),
+        "azimuth": ("azimuth", "azi"),
+    }.items():
         c = _find(list(frame.columns), names)
         if c is None:
-            raise StudyError(f"The survey file '{p}' needs a column '{key}'; it has "
-                             f"{', '.join(map(str, frame.columns))}.")
+            raise StudyError(
+                f"The survey file '{p}' needs a column '{key}'; it has "
+                f"{', '.join(map(str, frame.columns))}."
+            )
         cols[key] = _numeric(frame, c, p)
     try:
         return Survey(cols["md"], cols["inclination"], cols["azimuth"])
@@ -126,13 +133,19 @@ def _support(md: np.ndarray) -> np.ndarray:
     """Length of hole each sample stands for: half the distance to each neighbour."""
     if len(md) == 1:
         return np.ones(1)
-    edges = np.concatenate([[md[0] - (md[1] - md[0]) / 2], (md[1:] + md[:-1]) / 2,
-                            [md[-1] + (md[-1] - md[-2]) / 2]])
+    edges = np.concatenate(
+        [[md[0] - (md[1] - md[0]) / 2], (md[1:] + md[:-1]) / 2, [md[-1] + (md[-1] - md[-2]) / 2]]
+    )
     return np.diff(edges)
 
 
-def read_point_table(path: str | os.PathLike, variables: Sequence[str], *, name: str | None = None,
-                     columns: Mapping[str, str] | None = None) -> list[Well]:
+def read_point_table(
+    path: str | os.PathLike,
+    variables: Sequence[str],
+    *,
+    name: str | None = None,
+    columns: Mapping[str, str] | None = None,
+) -> list[Well]:
     """Wells from a point table: columns ``x``, ``y``, ``z`` and one per variable.
 
     Parameters
@@ -159,24 +172,39 @@ def read_point_table(path: str | os.PathLike, variables: Sequence[str], *, name:
         wanted = [columns[key]] if key in columns else [key]
         c = _find(list(frame.columns), wanted)
         if c is None:
-            raise StudyError(f"The well file '{p}' needs a column '{wanted[0]}' for '{key}'; it has "
-                             f"{', '.join(map(str, frame.columns))}.")
+            raise StudyError(
+                f"The well file '{p}' needs a column '{wanted[0]}' for '{key}'; it has "
+                f"{', '.join(map(str, frame.columns))}."
+            )
         found[key] = c
     well_col = _find(list(frame.columns), [columns.get("well", "well")])
     data = {k: _numeric(frame, c, p) for k, c in found.items()}
     for k in ("x", "y", "z"):
         if not np.all(np.isfinite(data[k])):
             row = int(np.flatnonzero(~np.isfinite(data[k]))[0])
-            raise StudyError(f"Column '{found[k]}' of '{p}' has no value in row {row + 2}; "
-                             "every sample needs coordinates.")
-    groups = (frame[well_col].astype(str).to_numpy() if well_col is not None
-              else np.full(len(frame), name or p.stem))
+            raise StudyError(
+                f"Column '{found[k]}' of '{p}' has no value in row {row + 2}; "
+                "every sample needs coordinates."
+            )
+    groups = (
+        frame[well_col].astype(str).to_numpy()
+        if well_col is not None
+        else np.full(len(frame), name or p.stem)
+    )
     wells = []
     for g in dict.fromkeys(groups):  # first-appearance order
         sel = groups == g
-        wells.append(Well(name=str(g), x=data["x"][sel], y=data["y"][sel], z=data["z"][sel],
-                          values={k: data[k][sel] for k in variables}, length=np.ones(int(sel.sum())),
-                          source=str(p)))
+        wells.append(
+            Well(
+                name=str(g),
+                x=data["x"][sel],
+                y=data["y"][sel],
+                z=data["z"][sel],
+                values={k: data[k][sel] for k in variables},
+                length=np.ones(int(sel.sum())),
+                source=str(p),
+            )
+        )
     return wells
 
 
@@ -197,8 +225,14 @@ def _header_value(las, keys: Sequence[str]) -> float | None:
     return None
 
 
-def read_las(path: str | os.PathLike, curves: Mapping[str, str], *, name: str | None = None,
-             collar: Sequence[float] | None = None, survey: Survey | None = None) -> Well:
+def read_las(
+    path: str | os.PathLike,
+    curves: Mapping[str, str],
+    *,
+    name: str | None = None,
+    collar: Sequence[float] | None = None,
+    survey: Survey | None = None,
+) -> Well:
     """A well from a LAS 2.0 file (read with lasio), placed by collar and survey.
 
     Parameters
@@ -238,15 +272,22 @@ def read_las(path: str | os.PathLike, curves: Mapping[str, str], *, name: str | 
     for var, mnem in curves.items():
         match = _find(keys, [mnem])
         if match is None:
-            raise StudyError(f"The LAS file '{p}' has no curve '{mnem}' for variable '{var}'; it has "
-                             f"{', '.join(keys)}.")
+            raise StudyError(
+                f"The LAS file '{p}' has no curve '{mnem}' for variable '{var}'; it has "
+                f"{', '.join(keys)}."
+            )
         values[var] = np.asarray(las[match], dtype=np.float64)[md_order]
     if collar is None:
-        cx, cy, cz = (_header_value(las, _X_KEYS), _header_value(las, _Y_KEYS),
-                      _header_value(las, _Z_KEYS))
+        cx, cy, cz = (
+            _header_value(las, _X_KEYS),
+            _header_value(las, _Y_KEYS),
+            _header_value(las, _Z_KEYS),
+        )
         if cx is None or cy is None or cz is None:
-            raise StudyError(f"The LAS file '{p}' has no collar coordinates (XCOORD, YCOORD, ELEV); "
-                             "give 'collar = [x, y, z]' for this well in the study.")
+            raise StudyError(
+                f"The LAS file '{p}' has no collar coordinates (XCOORD, YCOORD, ELEV); "
+                "give 'collar = [x, y, z]' for this well in the study."
+            )
         collar = (cx, cy, cz)
     cx, cy, cz = (float(c) for c in collar)
     well_name = name
@@ -258,5 +299,15 @@ def read_las(path: str | os.PathLike, curves: Mapping[str, str], *, name: str | 
     sv = survey if survey is not None else vertical_survey()
     pos = sv.positions(md)
     deviated = bool(np.any(np.abs(sv.directions[:, 2] - 1.0) > 1e-12))
-    return Well(name=well_name, x=cx + pos[:, 0], y=cy + pos[:, 1], z=cz - pos[:, 2], values=values,
-                length=_support(md), md=md, source=str(p), deviated=deviated, collar=(cx, cy, cz))
+    return Well(
+        name=well_name,
+        x=cx + pos[:, 0],
+        y=cy + pos[:, 1],
+        z=cz - pos[:, 2],
+        values=values,
+        length=_support(md),
+        md=md,
+        source=str(p),
+        deviated=deviated,
+        collar=(cx, cy, cz),
+    )
