@@ -120,7 +120,7 @@ def test_local_processes_equal_in_process_run(tmp_path):
     p = write_small_study(tmp_path / "s", n=4)
     study = load_study(p)
     run_study(study, tmp_path / "one", processes=1, progress=False)
-    run_study(study, tmp_path / "two", processes=2, progress=False)
+    run_study(study, tmp_path / "two", processes=2, progress=True)  # rich bars, worker queue
     assert _tree_bytes(tmp_path / "one") == _tree_bytes(tmp_path / "two")
 
 
@@ -201,7 +201,7 @@ def test_killed_run_resumes_to_identical_store(tmp_path):
         proc.wait(timeout=30)
     done_at_kill = _done_count(store_path)
     assert 2 <= done_at_kill < n, f"kill came too late or too early ({done_at_kill} done)"
-    resumed = subprocess.run(cmd, capture_output=True, text=True, check=False)
+    resumed = subprocess.run(cmd[:-1], capture_output=True, text=True, check=False)  # with bars
     assert resumed.returncode == 0, resumed.stderr
     assert f"({done_at_kill} already done)" in resumed.stdout
     assert _tree_bytes(ref) == _tree_bytes(out)
@@ -244,3 +244,23 @@ def test_run_ensemble_computes_only_missing(tmp_path):
     res = run_ensemble(fac, store, seeds, processes=1, progress=False)
     assert res.computed == [4] and fac.seeds == [seeds[4]]
     np.testing.assert_array_equal(store.read("facies", 4), before)
+
+
+def test_cli_run_on_a_dask_scheduler_address(tmp_path):
+    # `strataloom run --scheduler ADDRESS` from another process, against a local (loopback) cluster
+    from distributed import LocalCluster
+
+    p = write_small_study(tmp_path / "s", n=3)
+    run_study(load_study(p), tmp_path / "local", processes=1, progress=False)
+    with LocalCluster(
+        n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None,
+        host="127.0.0.1", protocol="tcp://",
+    ) as cluster:
+        out = subprocess.run(
+            [sys.executable, "-m", "strataloom", "run", str(p), "--out", str(tmp_path / "dask"),
+             "--scheduler", cluster.scheduler_address, "--no-progress"],
+            capture_output=True, text=True, check=False, timeout=120,
+        )
+    assert out.returncode == 0, out.stderr
+    assert "Dask cluster" in out.stdout
+    assert _tree_bytes(tmp_path / "local") == _tree_bytes(tmp_path / "dask")

@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -213,3 +214,29 @@ def test_check_prints_summary_and_estimates(tmp_path, capsys):
     assert "memory: store 8.0 KiB" in out  # 4 realizations * 1024 cells * 2 bytes
     assert "time: about" in out
     assert "leave-one-well-out accuracy" in out
+
+
+def test_documented_example_study_is_valid(tmp_path):
+    # the full example of docs/study-file.md must load as written (files are only read by a run)
+    doc = (Path(__file__).parents[1] / "docs" / "study-file.md").read_text()
+    block = doc.split("```toml\n", 1)[1].split("```", 1)[0]
+    (tmp_path / "study.toml").write_text(block)
+    s = load_study(tmp_path / "study.toml")
+    assert s.grid.shape == (16, 72, 72)
+    assert [c.name for c in s.variables["facies"].categories] == [
+        "floodplain mud", "channel sand", "levee silt"]
+    assert s.wells[1].collar == (812.5, 640.0, 78.0)
+    assert s.soft_data is not None and s.soft_data.components == 6
+    assert s.engine.parameters["tau"] == [1.0, 1.0]
+
+
+def test_demo_study_is_valid_and_calibrates(tmp_path):
+    from strataloom.demo import write_demo
+    from strataloom.workflow import prepare
+
+    s = load_study(write_demo(tmp_path))
+    prep = prepare(s)
+    assert len(prep.wells) == 12 and sum(w.deviated for w in prep.wells) == 3
+    assert prep.hard.report.outside_total > 0  # one deviated well leaves the model
+    cal = prep.calibration.scores
+    assert cal["accuracy"] > cal["baseline_accuracy"] and cal["brier"] < cal["baseline_brier"]
