@@ -253,13 +253,30 @@ def test_cli_run_on_a_dask_scheduler_address(tmp_path):
     p = write_small_study(tmp_path / "s", n=3)
     run_study(load_study(p), tmp_path / "local", processes=1, progress=False)
     with LocalCluster(
-        n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None,
-        host="127.0.0.1", protocol="tcp://",
+        n_workers=1,
+        threads_per_worker=1,
+        processes=False,
+        dashboard_address=None,
+        host="127.0.0.1",
+        protocol="tcp://",
     ) as cluster:
         out = subprocess.run(
-            [sys.executable, "-m", "strataloom", "run", str(p), "--out", str(tmp_path / "dask"),
-             "--scheduler", cluster.scheduler_address, "--no-progress"],
-            capture_output=True, text=True, check=False, timeout=120,
+            [
+                sys.executable,
+                "-m",
+                "strataloom",
+                "run",
+                str(p),
+                "--out",
+                str(tmp_path / "dask"),
+                "--scheduler",
+                cluster.scheduler_address,
+                "--no-progress",
+            ],
+            capture_output=True,
+            text=True,
+            check=False,
+            timeout=120,
         )
     assert out.returncode == 0, out.stderr
     assert "Dask cluster" in out.stdout

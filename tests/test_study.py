@@ -224,7 +224,10 @@ def test_documented_example_study_is_valid(tmp_path):
     s = load_study(tmp_path / "study.toml")
     assert s.grid.shape == (16, 72, 72)
     assert [c.name for c in s.variables["facies"].categories] == [
-        "floodplain mud", "channel sand", "levee silt"]
+        "floodplain mud",
+        "channel sand",
+        "levee silt",
+    ]
     assert s.wells[1].collar == (812.5, 640.0, 78.0)
     assert s.soft_data is not None and s.soft_data.components == 6
     assert s.engine.parameters["tau"] == [1.0, 1.0]

@@ -84,6 +84,7 @@ def _accepted(name: str) -> set[str]:
                 "auxiliary",
                 "seed",
                 "progress",
+                "return_source",
             ):
                 out.add(p.name)
     return out
@@ -248,15 +249,23 @@ class _PatternTreeAdapter:
         self._threads = threads
         self.variables = (f.variable,)
 
-    def simulate(self, seed: int) -> dict[str, np.ndarray]:
+    def simulate(self, seed: int, progress: Any = None) -> dict[str, np.ndarray]:
         f = self._f
         out = self._engine.simulate(
-            f.shape, hard=f.hard, soft=f.soft, seed=seed, threads=self._threads, **self._call
+            f.shape,
+            hard=f.hard,
+            soft=f.soft,
+            seed=seed,
+            threads=self._threads,
+            progress=progress,
+            **self._call,
         )
         return {f.variable: np.asarray(out)}
 
 
 class _DirectSamplerAdapter:
+    """Single-variable direct sampling with hard data (auxiliary variables: not in studies yet)."""
+
     def __init__(self, cls: Any, f: EngineFactory, params: dict[str, Any], threads: Any) -> None:
         init, self._call = _split(cls, params)
         self._engine = cls(f.training_image, **init)
@@ -264,12 +273,14 @@ class _DirectSamplerAdapter:
         self._threads = threads
         self.variables = (f.variable,)
 
-    def simulate(self, seed: int) -> dict[str, np.ndarray]:
+    def simulate(self, seed: int, progress: Any = None) -> dict[str, np.ndarray]:
         f = self._f
-        kwargs = dict(self._call)
-        if f.soft is not None:
-            kwargs["auxiliary"] = f.soft
         out = self._engine.simulate(
-            f.shape, hard=f.hard, seed=seed, threads=self._threads, **kwargs
+            f.shape,
+            hard=f.hard,
+            seed=seed,
+            threads=self._threads,
+            progress=progress,
+            **self._call,
         )
         return {f.variable: np.asarray(out)}

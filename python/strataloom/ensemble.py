@@ -92,8 +92,10 @@ def _worker_init(factory: Any, queue: Any) -> None:
     _adapter(factory)  # build the engine once, before the first task
 
 
-def _worker_task(factory: Any, index: int, seed: int) -> tuple[int, dict[str, np.ndarray]]:
-    return index, _simulate(_adapter(factory), index, seed, _PROGRESS_QUEUE)
+def _worker_task(index: int, seed: int) -> tuple[int, dict[str, np.ndarray]]:
+    # the engine was built by _worker_init; tasks carry only (index, seed), not the inputs
+    (adapter,) = _ADAPTERS.values()
+    return index, _simulate(adapter, index, seed, _PROGRESS_QUEUE)
 
 
 def _dask_task(factory: Any, index: int, seed: int) -> tuple[int, dict[str, np.ndarray]]:
@@ -284,7 +286,7 @@ def _run_local(
             it = iter(todo)
             # keep at most two tasks per worker in flight so results do not pile up in memory
             for index in it:
-                pending.add(pool.submit(_worker_task, factory, index, int(seeds[index])))
+                pending.add(pool.submit(_worker_task, index, int(seeds[index])))
                 if len(pending) >= 2 * p:
                     break
             while pending:
@@ -295,7 +297,7 @@ def _run_local(
                     yield fut.result()
                     nxt = next(it, None)
                     if nxt is not None:
-                        pending.add(pool.submit(_worker_task, factory, nxt, int(seeds[nxt])))
+                        pending.add(pool.submit(_worker_task, nxt, int(seeds[nxt])))
     finally:
         if manager is not None:
             manager.shutdown()

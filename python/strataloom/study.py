@@ -584,6 +584,12 @@ def load_study(path: str | Path) -> Study:
             f"names '{evar}', which is continuous; the pattern "
             "tree simulates a categorical variable.",
         )
+    if ename == "direct_sampler" and soft is not None:
+        raise r.error(
+            ("soft_data",),
+            "is used by the pattern_tree engine; direct-sampler auxiliary variables are not part "
+            "of the study schema yet.",
+        )
     engine = EngineSpec(ename, evar, params)
 
     en = r.table(

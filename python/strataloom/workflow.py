@@ -298,6 +298,8 @@ def run_study(
         Inputs already prepared (skips reading them again).
     """
     prep = prepared if prepared is not None else prepare(study)
+    if engine_class(study.engine.name) is None:
+        prep.factory()()  # the clear "engine not in this build" error, before any file is written
     out_dir = Path(out)
     out_dir.mkdir(parents=True, exist_ok=True)
     n = study.ensemble.realizations
@@ -329,8 +331,6 @@ def run_study(
     if client is None and scheduler is None:
         threads = max(1, (os.cpu_count() or 1) // max(1, min(local_p, n)))
     factory = prep.factory(threads=threads)
-    if engine_class(study.engine.name) is None:
-        factory()  # raises the clear "engine not in this build" error before any work
     result = run_ensemble(
         factory,
         store,

@@ -206,7 +206,11 @@ def calibrate(
     sample = rng.choice(n_cells, size=min(pca_cells, n_cells), replace=False)
     fit_cells = np.unique(np.concatenate([sample, flat]))
     n_feat = len(std) * (2 * pz + 1) * (2 * py + 1) * (2 * px + 1)
-    pca = PCA(n_components=min(ncomp, n_feat, len(fit_cells)), svd_solver="full", random_state=0)
+    pca = PCA(
+        n_components=min(ncomp, n_feat, len(fit_cells)),
+        svd_solver="covariance_eigh",
+        random_state=0,
+    )
     pca.fit(patch_features(std, fit_cells, patch3))
     x_well = pca.transform(patch_features(std, flat, patch3))
 
