@@ -310,6 +310,8 @@ void bind_tree(py::module_& m) {
              st["mean_kept"] = stats.mean_kept;
              st["scans"] = stats.scans;
              st["relocated"] = stats.relocated;
+             st["mean_visited"] = stats.mean_visited;
+             st["seconds"] = stats.seconds;
              return py::make_tuple(vector_to_array(std::move(out)), st);
            },
            py::arg("shape"), py::arg("hard"), py::arg("soft"), py::arg("tau"), py::arg("target"), py::arg("steering"),
