@@ -272,10 +272,7 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
   const std::size_t first = static_cast<std::size_t>(k);
   const std::uint32_t N = static_cast<std::uint32_t>(centres_.size());
   sc.prefix_hist.assign((M + 1) * K, 0);
-  const std::uint8_t* padded = padded_.data();
-  const std::int64_t* sorted = L.sorted.data();
   const std::uint32_t depth_end = L.depth_start[depth + 1];
-  const std::int64_t* delta = L.delta.data();
   // For every centre of the frontier, how many of the informed nodes first.. it matches in order,
   // 64 centres at a time: `alive` holds the centres still matching, `lost` those that stop here.
   const std::size_t stride = L.stride;
