@@ -119,6 +119,8 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
     std::sort(path.begin(), path.end());
     shuffle_path(path, opt.seed, level);
     const auto starts = conflict_free_batches(grid, level, tree.base_template().reach(), path, opt.max_batch);
+    // Preparing a level of a large grid takes a moment: give Ctrl-C a chance before running it.
+    if (poll && !poll(ctl.done.load(), ctl.total)) throw Cancelled();
     std::vector<std::int64_t> snapshot(counts);  // proportions seen by one batch
     std::int64_t informed_total = 0;
     for (auto c : counts) informed_total += c;
