@@ -5,10 +5,21 @@ from __future__ import annotations
 from importlib.metadata import PackageNotFoundError
 from importlib.metadata import version as _version
 
+from . import training
 from .errors import MemoryLimitError, ParameterError, ParameterTypeError, StudyError
 from .grid import Grid
 from .paths import conflict_free_batches, random_path, uniform_draws
 from .template import Template
+from .training import (
+    Bodies,
+    Channels,
+    Levee,
+    PropertyModel,
+    TrainingImage,
+    build_training_image,
+    gaussian_field,
+    rank_training_images,
+)
 
 try:
     __version__ = _version("strataloom")
@@ -16,14 +27,23 @@ except PackageNotFoundError:  # running from a source tree without an install
     __version__ = "0+unknown"
 
 __all__ = [
+    "Bodies",
+    "Channels",
     "Grid",
+    "Levee",
     "MemoryLimitError",
     "ParameterError",
     "ParameterTypeError",
+    "PropertyModel",
     "StudyError",
     "Template",
+    "TrainingImage",
     "__version__",
+    "build_training_image",
     "conflict_free_batches",
+    "gaussian_field",
     "random_path",
+    "rank_training_images",
+    "training",
     "uniform_draws",
 ]
