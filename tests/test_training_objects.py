@@ -173,7 +173,7 @@ def test_bad_parameters_name_the_parameter():
         Channels(facies=1, proportion=0.2, width=-10.0, thickness=2.0)
     with pytest.raises(sl.ParameterError, match="'thickness' of Bodies"):
         Bodies("lobe", 1, 0.2, length=10.0, width=5.0, thickness={"uniform": [-1.0, 2.0]})
-    with pytest.raises(sl.ParameterError, match="'width' of Channels.*within"):
+    with pytest.raises(sl.ParameterError, match=r"'width' of Channels.*within"):
         Channels(facies=1, proportion=0.2, width={"normal": [30.0, 5.0]}, thickness=2.0)
     with pytest.raises(sl.ParameterError, match="'proportion'"):
         build_objects((20, 20), [_channels(proportion=0.6), _lobes(proportion=0.5)])

@@ -48,7 +48,7 @@ class Distribution:
     @classmethod
     def parse(cls, value: Any, name: str, *, owner: str | None = None, positive: bool = False,
               low: float | None = None, high: float | None = None) -> Distribution:
-        """A Distribution from a number, a Distribution or a mapping such as ``{"uniform": [a, b]}``.
+        """A Distribution from a number, a Distribution or a mapping like ``{"uniform": [a, b]}``.
 
         Parameters
         ----------
@@ -75,14 +75,17 @@ class Distribution:
             kind = kinds[0]
             raw = value[kind]
             raw = [raw] if isinstance(raw, numbers.Real) and not isinstance(raw, bool) else raw
-            if isinstance(raw, (str, bytes)) or not hasattr(raw, "__len__") or len(raw) != _KINDS[kind]:
+            if (isinstance(raw, (str, bytes)) or not hasattr(raw, "__len__")
+                    or len(raw) != _KINDS[kind]):
                 raise v.fail(name, f"{kind} = a list of {_KINDS[kind]} numbers", raw, owner)
             args = tuple(v.real(x, name, owner=owner) for x in raw)
             within = value.get("within")
             if within is not None:
-                if isinstance(within, (str, bytes)) or not hasattr(within, "__len__") or len(within) != 2:
+                if (isinstance(within, (str, bytes)) or not hasattr(within, "__len__")
+                        or len(within) != 2):
                     raise v.fail(name, "within = [low, high]", within, owner)
-                within = (v.real(within[0], name, owner=owner), v.real(within[1], name, owner=owner))
+                within = (v.real(within[0], name, owner=owner),
+                          v.real(within[1], name, owner=owner))
                 if within[0] >= within[1]:
                     raise v.fail(name, "within = [low, high] with low < high", list(within), owner)
             dist = cls(kind, args, within)
@@ -97,20 +100,23 @@ class Distribution:
         if self.kind == "uniform" and not a[0] < a[1]:
             raise v.fail(name, "uniform = [low, high] with low < high", list(a), owner)
         if self.kind == "triangular" and not (a[0] <= a[1] <= a[2] and a[0] < a[2]):
-            raise v.fail(name, "triangular = [low, mode, high] with low <= mode <= high, low < high",
-                         list(a), owner)
+            raise v.fail(name, "triangular = [low, mode, high] with low <= mode <= high and "
+                         "low < high", list(a), owner)
         if self.kind in ("normal", "lognormal") and not a[1] > 0:
             raise v.fail(name, f"{self.kind} = [mean, sd] with sd > 0", list(a), owner)
         if self.kind == "lognormal" and not a[0] > 0:
             raise v.fail(name, "lognormal = [mean, sd] with mean > 0", list(a), owner)
         lo, hi = self.support()
+        shown = a[0] if self.kind == "fixed" else self.describe()
         if positive and not lo > 0:
             what = ("a positive number" if self.kind == "fixed" else
                     "a distribution of positive values (add within = [low, high] with low > 0)")
-            raise v.fail(name, what, self.describe(), owner)
+            raise v.fail(name, what, shown, owner)
         if (low is not None and lo < low) or (high is not None and hi > high):
-            rng = f"[{'-inf' if low is None else f'{low:g}'}, {'inf' if high is None else f'{high:g}'}]"
-            raise v.fail(name, f"a value or distribution within {rng}", self.describe(), owner)
+            lo_s = "-inf" if low is None else f"{low:g}"
+            hi_s = "inf" if high is None else f"{high:g}"
+            rng = f"[{lo_s}, {hi_s}]"
+            raise v.fail(name, f"a value or distribution within {rng}", shown, owner)
 
     # ------------------------------------------------------------------ use
     def support(self) -> tuple[float, float]:

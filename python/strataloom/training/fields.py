@@ -24,7 +24,6 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-import scipy.fft
 
 from .. import _validate as v
 
@@ -90,7 +89,12 @@ def gaussian_field(shape: Any, *, range: Any, model: str = "exponential", azimut
     spc = v.triple(spacing, "spacing", float, owner=o)
     if min(spc) <= 0:
         raise v.fail("spacing", "3 positive cell sizes (dz, dy, dx)", spacing, o)
-    rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(v.seed(seed, owner=o))
+    import scipy.fft  # imported on use: keeps `import strataloom` light
+
+    if isinstance(seed, np.random.Generator):
+        rng = seed
+    else:
+        rng = np.random.default_rng(v.seed(seed, owner=o))
     horiz = max(r[1], r[2])
     reach = (r[0], horiz, horiz)
     # padding: 2 ranges (the exponential correlation is 0.0025 there), never more than doubling

@@ -91,7 +91,8 @@ def write_vti(path: str | Path, arrays: Mapping[str, np.ndarray], *,
     return p
 
 
-def read_vti(path: str | Path) -> tuple[dict[str, np.ndarray], tuple[float, ...], tuple[float, ...]]:
+def read_vti(path: str | Path,
+             ) -> tuple[dict[str, np.ndarray], tuple[float, ...], tuple[float, ...]]:
     """Read a .vti written by `write_vti` (raw appended cell data).
 
     Returns
@@ -144,7 +145,6 @@ def write_sections_png(path: str | Path, facies: np.ndarray, *,
     k = int(max(fac.max(), 0)) + 1
     base = plt.get_cmap("tab10" if k <= 10 else "tab20")
     cmap = ListedColormap([base(i % base.N) for i in range(k)])
-    cmap.set_under("white")
     norm = BoundaryNorm(np.arange(-0.5, k + 0.5), k)
 
     def sections(a: np.ndarray) -> list[tuple[str, np.ndarray, list[float], str, str]]:

@@ -508,5 +508,5 @@ def _check_codes(groups: Sequence[Group], background: int) -> None:
         if isinstance(g, Channels) and g.levee is not None:
             lf = g.levee.facies
             if lf in body or lf == background:
-                raise v.fail("levee.facies", "a code other than the background and the object facies",
-                             lf, f"group '{g.name}'")
+                raise v.fail("levee.facies", "a code other than the background and the "
+                             "object facies", lf, f"group '{g.name}'")

@@ -37,7 +37,8 @@ def well_patterns(wells: Any, length: int, base: int) -> np.ndarray:
                           [np.empty(0, dtype=np.int64)])
 
 
-def pattern_histogram(ti: Any, length: int, base: int, axis: int = 0) -> tuple[np.ndarray, np.ndarray]:
+def pattern_histogram(ti: Any, length: int, base: int, axis: int = 0,
+                      ) -> tuple[np.ndarray, np.ndarray]:
     """Distinct patterns of ``length`` cells along ``axis`` in a TI and their counts."""
     a = np.moveaxis(v.as_volume(ti, "ti", owner="pattern_histogram"), axis, -1)
     codes = _windows(np.ascontiguousarray(a), length, base)
@@ -60,7 +61,8 @@ def _wells(wells: Any) -> list[np.ndarray]:
     for i, w in enumerate(wells):
         a = np.asarray(w)
         if a.ndim != 1 or (a.size and not np.issubdtype(a.dtype, np.integer)):
-            raise v.fail(f"wells[{i}]", "a 1-D sequence of integer facies codes (negative = not logged)",
+            raise v.fail(f"wells[{i}]",
+                         "a 1-D sequence of integer facies codes (negative = not logged)",
                          f"an array of shape {a.shape} and dtype {a.dtype}", o)
         out.append(a.astype(np.int64))
     return out
@@ -120,15 +122,16 @@ class Ranking:
         """A plain-text report, best first."""
         lines = [f"{'rank':>4}  {'training image':<24} {'divergence':>10} {'unseen windows':>14}"]
         for r, n in enumerate(self.names, 1):
-            lines.append(f"{r:>4}  {n:<24} {self.divergence[n]:>10.4f} {self.missing_share[n]:>14.3f}")
+            lines.append(f"{r:>4}  {n:<24} {self.divergence[n]:>10.4f} "
+                         f"{self.missing_share[n]:>14.3f}")
         for n in self.names:
             miss = self.missing[n]
             if miss:
                 shown = ", ".join(f"{'-'.join(map(str, p))} (x{c})" for p, c in miss[:show_missing])
                 more = f" and {len(miss) - show_missing} more" if len(miss) > show_missing else ""
                 lines.append(f"  {n} never contains: {shown}{more}")
-        lines.append(f"({self.windows} well windows of {self.length} cells; Jensen-Shannon divergence, "
-                     "0 = same frequencies, 1 = nothing in common)")
+        lines.append(f"({self.windows} well windows of {self.length} cells; Jensen-Shannon "
+                     "divergence, 0 = same frequencies, 1 = nothing in common)")
         return "\n".join(lines)
 
 

@@ -268,7 +268,7 @@ def parse_spec(data: Mapping[str, Any], *, source: str = "<spec>",
             or not all(isinstance(x, int) and not isinstance(x, bool) and x > 0 for x in shape)):
         raise ctx.error(("grid", "shape"), f"must be [nz, ny, nx] (or [ny, nx]) positive integers, "
                         f"got {shape!r}")
-    shape = ([1] + shape) if len(shape) == 2 else shape
+    shape = ([1, *shape]) if len(shape) == 2 else shape
     spacing = _number_list(ctx, ("grid", "spacing"), grid.get("spacing", [1.0, 1.0, 1.0]), 3,
                            "[dz, dy, dx], 3 positive numbers")
     if min(spacing) <= 0:
@@ -291,7 +291,8 @@ def parse_spec(data: Mapping[str, Any], *, source: str = "<spec>",
         raise ctx.error(("tolerance",), f"must be a number in [0, 0.5], got {tol!r}")
     names = top.get("facies", [])
     if not isinstance(names, list) or not all(isinstance(x, str) for x in names):
-        raise ctx.error(("facies",), f"must be a list of facies names (index = code), got {names!r}")
+        raise ctx.error(("facies",), "must be a list of facies names (index = code), "
+                        f"got {names!r}")
 
     groups: list[Channels | Bodies] = []
     props: list[tuple[Path_, Any]] = []
@@ -391,7 +392,8 @@ def _channels(ctx: _Ctx, path: Path_, t: Mapping[str, Any], i: int) -> Channels:
         lv = ctx.table(t["levee"], lp, _LEVEE, _LEVEE)
         kw["levee"] = Levee(facies=_facies_code(ctx, (*lp, "facies"), lv["facies"]),
                             width=_dist(ctx, (*lp, "width"), lv["width"], positive=True),
-                            thickness=_dist(ctx, (*lp, "thickness"), lv["thickness"], positive=True))
+                            thickness=_dist(ctx, (*lp, "thickness"), lv["thickness"],
+                                            positive=True))
     return ctx.check(path, Channels, **kw)
 
 
@@ -424,7 +426,8 @@ def _property(ctx: _Ctx, path: Path_, t: Any) -> PropertySpec:
             raise ctx.error((*path, key), f"must be a number, got {x!r}")
         bounds.append(None if x is None else float(x))
     if bounds[0] is not None and bounds[1] is not None and bounds[0] >= bounds[1]:
-        raise ctx.error((*path, "high"), f"must be greater than low ({bounds[0]:g}), got {bounds[1]:g}")
+        raise ctx.error((*path, "high"), f"must be greater than low ({bounds[0]:g}), "
+                        f"got {bounds[1]:g}")
     models: dict[int, PropertyModel] = {}
     for j, z in enumerate(ctx.array_of_tables(t["by_facies"], (*path, "by_facies"))):
         zp = (*path, "by_facies", j)
@@ -433,7 +436,8 @@ def _property(ctx: _Ctx, path: Path_, t: Any) -> PropertySpec:
         if code in models:
             raise ctx.error((*zp, "facies"), f"facies {code} already has a model in this property")
         if z.get("model", "exponential") not in MODELS:
-            raise ctx.error((*zp, "model"), f"must be one of {', '.join(MODELS)}, got {z['model']!r}")
+            raise ctx.error((*zp, "model"), f"must be one of {', '.join(MODELS)}, "
+                            f"got {z['model']!r}")
         for key in ("mean", "sd", "azimuth"):
             x = z.get(key, 0.0)
             if isinstance(x, bool) or not isinstance(x, int | float) or (key == "sd" and x < 0):

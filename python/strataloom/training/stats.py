@@ -18,8 +18,6 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-import scipy.fft
-import scipy.ndimage as ndi
 
 from .. import _validate as v
 
@@ -37,6 +35,20 @@ __all__ = [
     "variogram_map",
 ]
 
+
+
+class _Lazy:
+    """scipy modules imported on first use, so `import strataloom` stays light."""
+
+    def __getattr__(self, name: str) -> Any:
+        import scipy.fft
+        import scipy.ndimage
+
+        mods = {"fft": scipy.fft, "ndi": scipy.ndimage}
+        return mods[name]
+
+
+_scipy = _Lazy()
 _AXES = {"z": 0, "y": 1, "x": 2, 0: 0, 1: 1, 2: 2}
 
 
@@ -86,18 +98,18 @@ def _axis_variograms(a: np.ndarray, codes: list[int], ax: int, lmax: int) -> np.
     The pair counts and squared differences are cross-correlations along the axis (zero padded),
     summed over the other axes in the frequency domain before the inverse transform.
     """
-    size = scipy.fft.next_fast_len(2 * a.shape[ax], real=True)
+    size = _scipy.fft.next_fast_len(2 * a.shape[ax], real=True)
     others = tuple(d for d in range(3) if d != ax)
     m = (a >= 0).astype(np.float64)
-    fm = scipy.fft.rfft(m, n=size, axis=ax)
-    pairs = scipy.fft.irfft(np.sum(np.abs(fm) ** 2, axis=others), n=size)
+    fm = _scipy.fft.rfft(m, n=size, axis=ax)
+    pairs = _scipy.fft.irfft(np.sum(np.abs(fm) ** 2, axis=others), n=size)
     lags = np.arange(1, lmax + 1)
     npairs = np.rint(pairs[lags])
     out = np.empty((len(codes), lmax))
     for j, k in enumerate(codes):
-        fi = scipy.fft.rfft((a == k).astype(np.float64), n=size, axis=ax)
+        fi = _scipy.fft.rfft((a == k).astype(np.float64), n=size, axis=ax)
         spec = np.conj(fm) * fi + np.conj(fi) * fm - 2.0 * np.abs(fi) ** 2
-        num = scipy.fft.irfft(np.sum(spec, axis=others), n=size)
+        num = _scipy.fft.irfft(np.sum(spec, axis=others), n=size)
         with np.errstate(invalid="ignore", divide="ignore"):
             out[j] = np.where(npairs > 0, num[lags] / (2.0 * np.maximum(npairs, 1)), np.nan)
     return np.maximum(out, 0.0)
@@ -161,11 +173,11 @@ def variogram_map(ti: Any, code: int, max_lag: Any = None) -> np.ndarray:
                                                  a.shape, strict=True))
     if min(lm) < 0:
         raise v.fail("max_lag", "non-negative lags", max_lag, o)
-    s = [scipy.fft.next_fast_len(2 * n, real=True) for n in a.shape]
-    fm = scipy.fft.rfftn((a >= 0).astype(np.float64), s=s)
-    fi = scipy.fft.rfftn((a == k).astype(np.float64), s=s)
-    mm = scipy.fft.irfftn(np.abs(fm) ** 2, s=s)
-    num = scipy.fft.irfftn(np.conj(fm) * fi + np.conj(fi) * fm - 2.0 * np.abs(fi) ** 2, s=s)
+    s = [_scipy.fft.next_fast_len(2 * n, real=True) for n in a.shape]
+    fm = _scipy.fft.rfftn((a >= 0).astype(np.float64), s=s)
+    fi = _scipy.fft.rfftn((a == k).astype(np.float64), s=s)
+    mm = _scipy.fft.irfftn(np.abs(fm) ** 2, s=s)
+    num = _scipy.fft.irfftn(np.conj(fm) * fi + np.conj(fi) * fm - 2.0 * np.abs(fi) ** 2, s=s)
     idx = np.ix_(*[np.arange(-L, L + 1) % s for L, s in zip(lm, mm.shape, strict=True)])
     pairs = np.rint(mm[idx])
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -210,7 +222,7 @@ def anisotropy(ti: Any, code: int, max_lag: int | None = None, spacing: Any = (1
     if not 0.0 < p < 1.0:
         raise v.fail("code", "a code present in part (not all) of the image", code, o)
     below = np.nan_to_num(g, nan=p * (1.0 - p)) < 0.5 * p * (1.0 - p)
-    labels, _ = ndi.label(below)
+    labels, _ = _scipy.ndi.label(below)
     region = labels == labels[L, L] if labels[L, L] else np.zeros_like(below)
     region[L, L] = True
     hy = np.broadcast_to(np.arange(-L, L + 1)[:, None] * spc[1], region.shape)[region]
@@ -225,8 +237,9 @@ def anisotropy(ti: Any, code: int, max_lag: int | None = None, spacing: Any = (1
 
 def _structure(connectivity: Any, owner: str) -> np.ndarray:
     if connectivity not in (6, 26) or isinstance(connectivity, bool):
-        raise v.fail("connectivity", "6 (faces) or 26 (faces, edges and corners)", connectivity, owner)
-    return ndi.generate_binary_structure(3, 1 if connectivity == 6 else 3)
+        raise v.fail("connectivity", "6 (faces) or 26 (faces, edges and corners)", connectivity,
+                     owner)
+    return _scipy.ndi.generate_binary_structure(3, 1 if connectivity == 6 else 3)
 
 
 def label_bodies(ti: Any, code: int, connectivity: int = 6) -> tuple[np.ndarray, int]:
@@ -241,7 +254,7 @@ def label_bodies(ti: Any, code: int, connectivity: int = 6) -> tuple[np.ndarray,
     """
     o = "label_bodies"
     a = _codes(ti, o)
-    labels, n = ndi.label(a == _code(code, o), structure=_structure(connectivity, o))
+    labels, n = _scipy.ndi.label(a == _code(code, o), structure=_structure(connectivity, o))
     return labels, int(n)
 
 
@@ -329,7 +342,7 @@ def body_sizes(ti: Any, code: int, connectivity: int = 6, spacing: Any = (1.0, 1
     if n == 0:
         return BodySizes(0, np.zeros(0, dtype=np.int64), np.zeros((0, 3)))
     cells = np.bincount(labels.ravel())[1:]
-    boxes = ndi.find_objects(labels)
+    boxes = _scipy.ndi.find_objects(labels)
     extent = np.array([[s.stop - s.start for s in b] for b in boxes], dtype=float) * spc
     order = np.argsort(-cells, kind="stable")
     return BodySizes(n, cells[order].astype(np.int64), extent[order])
@@ -352,7 +365,8 @@ class Statistics:
                 f"{'typical z':>9} {'typical y':>9} {'typical x':>9}"]
         for k, p in enumerate(self.proportions):
             t = self.bodies[k].typical()
-            rows.append(f"{k:>4} {p:>7.4f} {self.connected_share[k]:>12.3f} {self.bodies[k].count:>7d} "
+            rows.append(f"{k:>4} {p:>7.4f} {self.connected_share[k]:>12.3f} "
+                        f"{self.bodies[k].count:>7d} "
                         f"{t['z']:>9.4g} {t['y']:>9.4g} {t['x']:>9.4g}")
         rows.append(f"(bodies: {self.connectivity}-connectivity; largest body = share of the "
                     "code's cells in its largest body; typical = size-weighted median extent)")
