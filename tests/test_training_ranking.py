@@ -77,6 +77,9 @@ def test_missing_patterns_and_gaps():
     assert r.missing["layered"] == [((1, 0, 0), 1)]
     assert r.missing_share["layered"] == pytest.approx(1 / 5)
     assert "never contains: 1-0-0" in r.table()
+    # the same wells in depth order (top down) give the same windows
+    down = rank_training_images([w[::-1] for w in wells], {"layered": ti}, length=3, top_down=True)
+    assert down.missing == r.missing and down.divergence == r.divergence
 
 
 def test_bad_ranking_inputs(candidates):

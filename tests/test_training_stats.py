@@ -128,6 +128,16 @@ def test_describe_and_proportions():
     assert np.allclose(proportions(a, ncodes=5), [2 / 7, 2 / 7, 3 / 7, 0, 0])
     st = describe(a)
     assert set(st.variograms) == {"y", "x"} and st.variograms["x"].shape == (3, 2)
+    assert st.connectivity_functions["x"].shape == (3, 2)
+    # describe agrees with the single-purpose functions on a built image
+    b = (np.random.default_rng(4).random((10, 30, 40)) < 0.4).astype(np.int8)
+    st = describe(b, spacing=(1.0, 2.0, 3.0), connectivity=26, max_lag=7, tau_lag=5)
+    for k in (0, 1):
+        assert st.connected_share[k] == pytest.approx(connected_share(b, k, 26))
+        assert np.array_equal(st.bodies[k].cells, body_sizes(b, k, 26, (1.0, 2.0, 3.0)).cells)
+        assert np.allclose(st.variograms["y"][k], indicator_variogram(b, k, "y", 7)[1])
+        assert np.allclose(st.connectivity_functions["z"][k],
+                           connectivity_function(b, k, "z", 5, 26)[1])
     assert "largest body" in st.table() and st.as_dict()["proportions"] == list(st.proportions)
 
 

@@ -33,8 +33,11 @@ def _ti_arguments(parser: argparse.ArgumentParser) -> None:
     r.add_argument("tis", nargs="+", help="candidate TIs (.npy or .vti)")
     r.add_argument("--wells", required=True,
                    help="a .npy array (wells, cells) of codes (-1 = not logged), or a CSV with "
-                   "columns well,facies listed in the order of the TI's z axis")
+                   "columns well,facies listed bottom up (see --top-down)")
     r.add_argument("--length", type=int, default=4, help="pattern length in cells (default 4)")
+    r.add_argument("--top-down", action="store_true",
+                   help="the wells are listed from the top down (depth order); the TI's z "
+                   "axis points up")
 
 
 def _read_ti(path: str) -> tuple[object, tuple[float, float, float] | None]:
@@ -93,7 +96,9 @@ def _ti(args: argparse.Namespace) -> int:
     cands = {Path(p).stem: _read_ti(p)[0] for p in args.tis}
     if len(cands) != len(args.tis):
         cands = {p: _read_ti(p)[0] for p in args.tis}
-    print(rank_training_images(_read_wells(args.wells), cands, length=args.length).table())
+    ranking = rank_training_images(_read_wells(args.wells), cands, length=args.length,
+                                   top_down=args.top_down)
+    print(ranking.table())
     return 0
 
 

@@ -63,6 +63,10 @@ class TrainingImage:
         if self.build:
             counts = ", ".join(f"{n}: {c}" for n, c in self.build.counts.items())
             lines.append(f"objects kept: {counts}; drawn but not kept: {self.build.rejected}")
+            err = self.build.largest_error()
+            if err > 0.02:
+                lines.append(f"note: a target is missed by {err:.3f}; objects may be too large "
+                             "for the grid, or raise max_objects / patience")
         return "\n".join(lines)
 
     def save(self, folder: str | Path, *, stem: str = "ti", png: bool = True) -> dict[str, Path]:

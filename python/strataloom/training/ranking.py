@@ -1,7 +1,7 @@
 """Rank candidate training images by how well their vertical facies sequences match the wells.
 
-Each well is a column of facies codes at the TI's vertical cell size (top to bottom or bottom to
-top, as long as the TI's z axis runs the same way; negative = not logged). Every run of ``length``
+Each well is a column of facies codes at the TI's vertical cell size, bottom up like the TI's z
+axis (or top down with ``top_down=True``); negative = not logged. Every run of ``length``
 consecutive logged cells is a pattern. The wells' pattern frequencies are compared with those of
 every column of each candidate TI by the Jensen-Shannon divergence (base 2, 0 for identical
 histograms, 1 for disjoint ones; Lin 1991, "Divergence measures based on the Shannon entropy", IEEE
@@ -136,7 +136,7 @@ class Ranking:
 
 
 def rank_training_images(wells: Any, candidates: Mapping[str, Any] | Sequence[Any], *,
-                         length: int = 4, axis: Any = 0) -> Ranking:
+                         length: int = 4, axis: Any = 0, top_down: bool = False) -> Ranking:
     """Rank candidate TIs by the distance between well and TI vertical pattern frequencies.
 
     Parameters
@@ -150,6 +150,9 @@ def rank_training_images(wells: Any, candidates: Mapping[str, Any] | Sequence[An
         Pattern length in cells (>= 1); 1 compares proportions only.
     axis : int or {"z", "y", "x"}, default 0
         The axis the wells run along (0 = z).
+    top_down : bool, default False
+        The wells are listed from the top down (depth order), so they are reversed to match the
+        TI's z axis, which points up.
 
     Returns
     -------
@@ -161,6 +164,10 @@ def rank_training_images(wells: Any, candidates: Mapping[str, Any] | Sequence[An
     ax = {"z": 0, "y": 1, "x": 2}.get(axis, axis)
     ax = v.integer(ax, "axis", low=0, high=2, owner=o)
     ws = _wells(wells)
+    if not isinstance(top_down, bool):
+        raise v.fail_type("top_down", "a bool", top_down, o)
+    if top_down:
+        ws = [w[::-1] for w in ws]
     if isinstance(candidates, Mapping):
         items = list(candidates.items())
     elif isinstance(candidates, Sequence) and not isinstance(candidates, (str, bytes)):

@@ -14,7 +14,7 @@ plan view (nz = 1) these are 4- and 8-connectivity.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -286,10 +286,15 @@ def connectivity_function(ti: Any, code: int, axis: Any = "x", max_lag: int | No
     lmax = max(n // 2, 1) if max_lag is None else v.integer(max_lag, "max_lag", low=1,
                                                              high=max(n - 1, 1), owner=o)
     labels, _ = label_bodies(a, code, connectivity)
+    return np.arange(1, lmax + 1), _tau(labels, ax, lmax)
+
+
+def _tau(labels: np.ndarray, ax: int, lmax: int) -> np.ndarray:
+    """Connectivity function along ``ax`` from body labels (0 = outside the facies)."""
     lab = np.moveaxis(labels, ax, 0)
-    lags = np.arange(1, lmax + 1)
+    n = lab.shape[0]
     tau = np.full(lmax, np.nan)
-    for j, h in enumerate(lags):
+    for j, h in enumerate(range(1, lmax + 1)):
         if h >= n:
             break
         x, y = lab[:-h], lab[h:]
@@ -297,7 +302,7 @@ def connectivity_function(ti: Any, code: int, axis: Any = "x", max_lag: int | No
         nb = np.count_nonzero(both)
         if nb:
             tau[j] = np.count_nonzero(both & (x == y)) / nb
-    return lags, tau
+    return tau
 
 
 @dataclass(frozen=True)
@@ -339,6 +344,10 @@ def body_sizes(ti: Any, code: int, connectivity: int = 6, spacing: Any = (1.0, 1
     o = "body_sizes"
     spc = np.array(v.triple(spacing, "spacing", float, owner=o))
     labels, n = label_bodies(ti, code, connectivity)
+    return _sizes(labels, n, spc)
+
+
+def _sizes(labels: np.ndarray, n: int, spc: np.ndarray) -> BodySizes:
     if n == 0:
         return BodySizes(0, np.zeros(0, dtype=np.int64), np.zeros((0, 3)))
     cells = np.bincount(labels.ravel())[1:]
@@ -358,6 +367,7 @@ class Statistics:
     variograms: dict[str, np.ndarray]
     connectivity: int
     spacing: tuple[float, float, float]
+    connectivity_functions: dict[str, np.ndarray] = field(default_factory=dict)
 
     def table(self) -> str:
         """A plain-text table, one row per code."""
@@ -380,14 +390,16 @@ class Statistics:
             "bodies": [{"count": b.count, "typical": b.typical()} for b in self.bodies],
             "variograms": {k: np.where(np.isnan(g), None, g).tolist()
                            for k, g in self.variograms.items()},
+            "connectivity_functions": {k: np.where(np.isnan(g), None, g).tolist()
+                                       for k, g in self.connectivity_functions.items()},
             "connectivity": self.connectivity,
             "spacing": list(self.spacing),
         }
 
 
 def describe(ti: Any, *, spacing: Any = (1.0, 1.0, 1.0), connectivity: int = 6,
-             max_lag: int | None = None) -> Statistics:
-    """Proportions, largest-body shares, body sizes and axis variograms of every code.
+             max_lag: int | None = None, tau_lag: int | None = 32) -> Statistics:
+    """Proportions, largest-body shares, body sizes, axis variograms and connectivity functions.
 
     Parameters
     ----------
@@ -398,22 +410,39 @@ def describe(ti: Any, *, spacing: Any = (1.0, 1.0, 1.0), connectivity: int = 6,
     connectivity : {6, 26}, default 6
     max_lag : int, optional
         Largest variogram lag in cells (default half of each axis).
+    tau_lag : int or None, default 32
+        Largest lag of the connectivity functions (capped at half of each axis); None skips them.
 
     Returns
     -------
     Statistics
-        ``variograms`` holds arrays ``(K, L)`` under keys ``"z"``, ``"y"``, ``"x"`` (axes of
-        length 1 are left out).
+        ``variograms`` and ``connectivity_functions`` hold arrays ``(K, L)`` under keys
+        ``"z"``, ``"y"``, ``"x"`` (axes of length 1 are left out).
     """
-    a = _codes(ti, "describe")
-    spc = v.triple(spacing, "spacing", float, owner="describe")
+    o = "describe"
+    a = _codes(ti, o)
+    spc = v.triple(spacing, "spacing", float, owner=o)
+    structure = _structure(connectivity, o)
+    if max_lag is not None:
+        v.integer(max_lag, "max_lag", low=1, high=2**31 - 1, owner=o)
+    if tau_lag is not None:
+        v.integer(tau_lag, "tau_lag", low=1, high=2**31 - 1, owner=o)
     p = proportions(a)
-    share = np.array([connected_share(a, k, connectivity) for k in range(len(p))])
-    bodies = [body_sizes(a, k, connectivity, spc) for k in range(len(p))]
+    axes = [(name, ax) for name, ax in (("z", 0), ("y", 1), ("x", 2)) if a.shape[ax] >= 2]
+    share = np.zeros(len(p))
+    bodies = []
+    taus: dict[str, list[np.ndarray]] = {name: [] for name, _ in axes}
+    for k in range(len(p)):
+        labels, n = _scipy.ndi.label(a == k, structure=structure)
+        sizes = _sizes(labels, int(n), np.array(spc))
+        bodies.append(sizes)
+        share[k] = sizes.cells[0] / sizes.cells.sum() if n else 0.0
+        if tau_lag is not None:
+            for name, ax in axes:
+                taus[name].append(_tau(labels, ax, max(min(tau_lag, a.shape[ax] // 2), 1)))
     grams = {}
-    for name, ax in (("z", 0), ("y", 1), ("x", 2)):
-        if a.shape[ax] < 2:
-            continue
+    for name, ax in axes:
         lag = a.shape[ax] // 2 if max_lag is None else min(max_lag, a.shape[ax] - 1)
         grams[name] = _axis_variograms(a, list(range(len(p))), ax, max(lag, 1))
-    return Statistics(p, share, bodies, grams, connectivity, spc)  # type: ignore[arg-type]
+    tau = {name: np.array(t) for name, t in taus.items() if t}
+    return Statistics(p, share, bodies, grams, connectivity, spc, tau)  # type: ignore[arg-type]
