@@ -96,3 +96,25 @@ def test_cli_bad_spec_is_one_line_with_key_and_line(tmp_path, edit):
     lines = res.stderr.strip().splitlines()
     assert len(lines) == 1 and "bad.toml, line " in lines[0] and ", key " in lines[0]
     assert not (tmp_path / "o").exists()
+
+
+def test_vti_reads_back_in_vtk(tmp_path):
+    # reference library: VTK's own vtkXMLImageDataReader (the reader ParaView uses); skipped where
+    # the vtk package is not installed (it is not a dependency of the project)
+    vtk = pytest.importorskip("vtk")
+    from vtk.util.numpy_support import vtk_to_numpy
+
+    fac = (np.random.default_rng(1).random((3, 5, 7)) * 4).astype(np.int8)
+    por = np.random.default_rng(2).random((3, 5, 7)).astype(np.float32)
+    p = write_vti(tmp_path / "r.vti", {"facies": fac, "porosity": por}, spacing=(0.5, 2.0, 4.0),
+                  origin=(1.0, 2.0, 3.0))
+    reader = vtk.vtkXMLImageDataReader()
+    reader.SetFileName(str(p))
+    reader.Update()
+    img = reader.GetOutput()
+    assert img.GetDimensions() == (8, 6, 4) and img.GetNumberOfCells() == fac.size
+    assert img.GetSpacing() == (4.0, 2.0, 0.5) and img.GetOrigin() == (3.0, 2.0, 1.0)
+    cd = img.GetCellData()
+    assert np.array_equal(vtk_to_numpy(cd.GetArray("facies")).reshape(fac.shape), fac)
+    assert np.array_equal(vtk_to_numpy(cd.GetArray("porosity")).reshape(fac.shape), por)
+    assert vtk_to_numpy(cd.GetArray("facies"))[img.ComputeCellId([6, 4, 2])] == fac[2, 4, 6]

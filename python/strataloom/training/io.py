@@ -128,8 +128,9 @@ def write_sections_png(path: str | Path, facies: np.ndarray, *,
                        facies_names: Sequence[str] = (), title: str = "") -> Path:
     """A PNG of sections through the middle of the grid, facies (and properties) side by side.
 
-    A 3-D grid shows the horizontal section at mid height and the vertical sections at mid y and
-    mid x; a plan view (nz = 1) shows the map. Each property adds a row. Matplotlib (Agg backend)
+    A 3-D grid shows the horizontal section at mid height (true scale) and the vertical sections
+    at mid y and mid x (stretched to the panel: vertical exaggeration); a plan view (nz = 1) shows
+    the map. Each property adds a row. Matplotlib (Agg backend)
     is imported here only.
     """
     import matplotlib
@@ -161,7 +162,7 @@ def write_sections_png(path: str | Path, facies: np.ndarray, *,
     for j, (name, sec, ext, xl, yl) in enumerate(sections(fac)):
         ax = axes[0, j]
         im = ax.imshow(np.ma.masked_less(sec, 0), origin="lower", extent=ext, cmap=cmap, norm=norm,
-                       interpolation="nearest", aspect="auto")
+                       interpolation="nearest", aspect="equal" if yl == "y" else "auto")
         ax.set_title(f"facies, {name}", fontsize=9)
         ax.set_xlabel(xl)
         ax.set_ylabel(yl)
@@ -175,7 +176,7 @@ def write_sections_png(path: str | Path, facies: np.ndarray, *,
         for j, (name, sec, ext, xl, yl) in enumerate(sections(pv)):
             ax = axes[r, j]
             im = ax.imshow(sec, origin="lower", extent=ext, cmap="viridis", vmin=lo, vmax=hi,
-                           interpolation="nearest", aspect="auto")
+                           interpolation="nearest", aspect="equal" if yl == "y" else "auto")
             ax.set_title(f"{pname}, {name}", fontsize=9)
             ax.set_xlabel(xl)
             ax.set_ylabel(yl)
