@@ -12,15 +12,26 @@ from typing import Any
 import numpy as np
 import zarr
 
-CATS = [{"code": 0, "name": "floodplain mud", "colour": "#8c7a5b"},
-        {"code": 1, "name": "channel sand", "colour": "#e0b84a"},
-        {"code": 2, "name": "levee silt", "colour": "#6a9a58"}]
+CATS = [
+    {"code": 0, "name": "floodplain mud", "colour": "#8c7a5b"},
+    {"code": 1, "name": "channel sand", "colour": "#e0b84a"},
+    {"code": 2, "name": "levee silt", "colour": "#6a9a58"},
+]
 
 
-def write_store(run_dir: Path, variables: dict[str, np.ndarray], *, categories: dict[str, list] | None = None,
-                done: Any = None, spacing=(1.0, 1.0, 1.0), origin=(0.0, 0.0, 0.0), chunk_z: int | None = None,
-                hard: dict[str, np.ndarray] | None = None, soft: np.ndarray | None = None,
-                extra: dict | None = None) -> Path:
+def write_store(
+    run_dir: Path,
+    variables: dict[str, np.ndarray],
+    *,
+    categories: dict[str, list] | None = None,
+    done: Any = None,
+    spacing=(1.0, 1.0, 1.0),
+    origin=(0.0, 0.0, 0.0),
+    chunk_z: int | None = None,
+    hard: dict[str, np.ndarray] | None = None,
+    soft: np.ndarray | None = None,
+    extra: dict | None = None,
+) -> Path:
     """Write ``run_dir/realizations.zarr`` holding the given (n, nz, ny, nx) arrays."""
     run_dir = Path(run_dir)
     run_dir.mkdir(parents=True, exist_ok=True)
@@ -31,9 +42,14 @@ def write_store(run_dir: Path, variables: dict[str, np.ndarray], *, categories: 
     spec = {}
     for name, data in variables.items():
         cat = np.issubdtype(data.dtype, np.integer)
-        a = g.create_array(name, shape=data.shape, chunks=(1, cz, ny, nx),
-                           dtype="int16" if cat else "float32", fill_value=-1 if cat else np.nan,
-                           dimension_names=("realization", "z", "y", "x"))
+        a = g.create_array(
+            name,
+            shape=data.shape,
+            chunks=(1, cz, ny, nx),
+            dtype="int16" if cat else "float32",
+            fill_value=-1 if cat else np.nan,
+            dimension_names=("realization", "z", "y", "x"),
+        )
         flags = np.ones(n, bool) if done is None else np.asarray(done, bool)
         for i in range(n):
             if flags[i]:
@@ -44,11 +60,17 @@ def write_store(run_dir: Path, variables: dict[str, np.ndarray], *, categories: 
             spec[name] = {"kind": "continuous", "units": "fraction"}
     d = g.create_array("done", shape=(n,), dtype="uint8", fill_value=0)
     d[...] = (np.ones(n) if done is None else np.asarray(done)).astype(np.uint8)
-    meta = {"format": "realizations", "format_version": 1, "version": "0.1.0",
-            "grid": {"shape": [nz, ny, nx], "spacing": list(spacing), "origin": list(origin)},
-            "variables": spec, "seeds": list(range(100, 100 + n)),
-            "engine": {"name": "pattern_tree", "parameters": {"levels": 2}},
-            "inputs": {"ti.npy": "0" * 64}, "study": {"name": "test study"}}
+    meta = {
+        "format": "realizations",
+        "format_version": 1,
+        "version": "0.1.0",
+        "grid": {"shape": [nz, ny, nx], "spacing": list(spacing), "origin": list(origin)},
+        "variables": spec,
+        "seeds": list(range(100, 100 + n)),
+        "engine": {"name": "pattern_tree", "parameters": {"levels": 2}},
+        "inputs": {"ti.npy": "0" * 64},
+        "study": {"name": "test study"},
+    }
     if hard is not None:
         np.savez(run_dir / "hard_data.npz", **hard)
         meta["hard_data"] = {"variable": "facies", "file": "hard_data.npz"}

@@ -1,4 +1,4 @@
-"""Connected bodies of a facies: labelling, body volumes, wells touching bodies, connectivity functions.
+"""Connected bodies of a facies: labels, volumes, wells touching bodies, connectivity functions.
 
 Bodies are the connected components of the cells of one facies, found by
 :func:`scipy.ndimage.label`. Two cells are neighbours when they share a face (``connectivity=6``,
@@ -14,8 +14,14 @@ import numpy as np
 
 from . import _validate as v
 
-__all__ = ["body_sizes", "connectivity_function", "label_bodies", "structure", "well_bodies",
-           "wells_from_hard_data"]
+__all__ = [
+    "body_sizes",
+    "connectivity_function",
+    "label_bodies",
+    "structure",
+    "well_bodies",
+    "wells_from_hard_data",
+]
 
 
 def structure(connectivity: int = 6) -> np.ndarray:
@@ -56,8 +62,9 @@ def body_sizes(labels: np.ndarray, n: int) -> np.ndarray:
     return np.bincount(labels.ravel(), minlength=n + 1).astype(np.int64)
 
 
-def well_bodies(labels: np.ndarray, sizes: np.ndarray, wells: Mapping[str, np.ndarray]
-                ) -> tuple[np.ndarray, np.ndarray]:
+def well_bodies(
+    labels: np.ndarray, sizes: np.ndarray, wells: Mapping[str, np.ndarray]
+) -> tuple[np.ndarray, np.ndarray]:
     """Volumes of the bodies touched by each well, and which wells share a body.
 
     Parameters

@@ -49,23 +49,31 @@ class Run:
             p = p.parent
         store = p / STORE_NAME
         if not store.is_dir():
-            raise StudyError(f"The run folder '{p}' has no {STORE_NAME}; run an ensemble into it first "
-                             "(strataloom run STUDY --out DIR).")
+            raise StudyError(
+                f"The run folder '{p}' has no {STORE_NAME}; run an ensemble into it first "
+                "(strataloom run STUDY --out DIR)."
+            )
         self.path = p
         try:
             self._group = zarr.open_group(store, mode="r")
         except Exception as exc:  # zarr raises several kinds for a damaged store
-            raise StudyError(f"The store '{store}' cannot be opened as a zarr v3 group: {exc}") from exc
+            raise StudyError(
+                f"The store '{store}' cannot be opened as a zarr v3 group: {exc}"
+            ) from exc
         attrs = dict(self._group.attrs)
         meta = attrs.get("strataloom")
         if isinstance(meta, str):
             meta = json.loads(meta)
         if not isinstance(meta, dict) or meta.get("format") != "realizations":
-            raise StudyError(f"The store '{store}' has no 'strataloom' attribute of format "
-                             "'realizations'; it was not written by an ensemble run.")
+            raise StudyError(
+                f"The store '{store}' has no 'strataloom' attribute of format "
+                "'realizations'; it was not written by an ensemble run."
+            )
         if int(meta.get("format_version", 0)) > FORMAT_VERSION:
-            raise StudyError(f"The store '{store}' has format_version {meta.get('format_version')}; "
-                             f"this version reads up to {FORMAT_VERSION}. Upgrade strataloom.")
+            raise StudyError(
+                f"The store '{store}' has format_version {meta.get('format_version')}; "
+                f"this version reads up to {FORMAT_VERSION}. Upgrade strataloom."
+            )
         self.meta: dict[str, Any] = meta
         g = meta.get("grid", {})
         try:
@@ -75,13 +83,19 @@ class Run:
         self.variables: dict[str, dict[str, Any]] = dict(meta.get("variables", {}))
         for name, spec in self.variables.items():
             if name not in self._group:
-                raise StudyError(f"The store '{store}' declares variable '{name}' but has no array for it.")
+                raise StudyError(
+                    f"The store '{store}' declares variable '{name}' but has no array for it."
+                )
             shape = tuple(self._group[name].shape)
             if shape[1:] != self.grid.shape:
-                raise StudyError(f"The array '{name}' has shape {shape}; the grid is {self.grid.shape}.")
+                raise StudyError(
+                    f"The array '{name}' has shape {shape}; the grid is {self.grid.shape}."
+                )
             if spec.get("kind") not in ("categorical", "continuous"):
-                raise StudyError(f"The variable '{name}' has kind {spec.get('kind')!r}; "
-                                 "expected 'categorical' or 'continuous'.")
+                raise StudyError(
+                    f"The variable '{name}' has kind {spec.get('kind')!r}; "
+                    "expected 'categorical' or 'continuous'."
+                )
         if not self.variables:
             raise StudyError(f"The store '{store}' declares no variables.")
         first = next(iter(self.variables))
@@ -107,13 +121,21 @@ class Run:
             raise v.fail("variable", "a categorical variable", variable, "Run.categories")
         cats = spec.get("categories")
         if not cats:  # codes seen in the first finished realization
-            seen = (np.unique(self.realization(int(self.completed[0]), variable))
-                    if self.completed.size else np.array([], dtype=np.int16))
+            seen = (
+                np.unique(self.realization(int(self.completed[0]), variable))
+                if self.completed.size
+                else np.array([], dtype=np.int16)
+            )
             cats = [{"code": int(c)} for c in seen if c >= 0]
         out = []
         for i, c in enumerate(sorted(cats, key=lambda c: int(c["code"]))):
-            out.append({"code": int(c["code"]), "name": str(c.get("name", f"facies {c['code']}")),
-                        "colour": str(c.get("colour", _DEFAULT_COLOURS[i % len(_DEFAULT_COLOURS)]))})
+            out.append(
+                {
+                    "code": int(c["code"]),
+                    "name": str(c.get("name", f"facies {c['code']}")),
+                    "colour": str(c.get("colour", _DEFAULT_COLOURS[i % len(_DEFAULT_COLOURS)])),
+                }
+            )
         return out
 
     def codes(self, variable: str) -> np.ndarray:
@@ -146,15 +168,18 @@ class Run:
         i = v.integer(index, "index", low=0, high=self.size - 1, owner="Run.realization")
         return np.asarray(self.array(variable)[i])
 
-    def iter_realizations(self, variable: str, indices: Any = None) -> Iterator[tuple[int, np.ndarray]]:
+    def iter_realizations(
+        self, variable: str, indices: Any = None
+    ) -> Iterator[tuple[int, np.ndarray]]:
         """Yield ``(index, array)`` for each finished realization, one at a time."""
         idx = self.completed if indices is None else np.asarray(indices, dtype=np.int64)
         arr = self.array(variable)
         for i in idx:
             yield int(i), np.asarray(arr[int(i)])
 
-    def slab(self, variable: str, z: slice, y: slice = slice(None),
-             indices: Any = None) -> np.ndarray:
+    def slab(
+        self, variable: str, z: slice, y: slice = slice(None), indices: Any = None
+    ) -> np.ndarray:
         """Cells ``[z, y, :]`` of every finished realization: shape ``(n_done, dz, dy, nx)``."""
         idx = self.completed if indices is None else np.asarray(indices, dtype=np.int64)
         arr = self.array(variable)
@@ -171,7 +196,7 @@ class Run:
         return int(self.array(variable).chunks[1])
 
     def hard_data(self) -> dict[str, np.ndarray] | None:
-        """The upscaled conditioning data ``{'cells': (m, 3), 'values_<variable>': (m,)}`` or None."""
+        """Upscaled conditioning data ``{'cells': (m, 3), 'values_<variable>': (m,)}``, or None."""
         info = self.meta.get("hard_data") or {}
         name = info.get("file", "hard_data.npz") if isinstance(info, dict) else "hard_data.npz"
         f = self.path / name
@@ -190,22 +215,36 @@ class Run:
             return None
         soft = np.load(f, mmap_mode="r", allow_pickle=False)
         if soft.ndim != 4 or soft.shape[1:] != self.grid.shape:
-            raise StudyError(f"The file '{f}' has shape {soft.shape}; expected (K, *{self.grid.shape}).")
+            raise StudyError(
+                f"The file '{f}' has shape {soft.shape}; expected (K, *{self.grid.shape})."
+            )
         return soft
 
     def __repr__(self) -> str:
-        return (f"Run('{self.path}', {self.completed.size}/{self.size} realizations done, "
-                f"variables={list(self.variables)}, grid={self.grid.shape})")
+        return (
+            f"Run('{self.path}', {self.completed.size}/{self.size} realizations done, "
+            f"variables={list(self.variables)}, grid={self.grid.shape})"
+        )
 
 
-_DEFAULT_COLOURS = ["#8c7a5b", "#e0b84a", "#4f7ca8", "#6a9a58", "#b0533c", "#8a6bb0", "#5aa9a6",
-                    "#c98bb9"]
+_DEFAULT_COLOURS = [
+    "#8c7a5b",
+    "#e0b84a",
+    "#4f7ca8",
+    "#6a9a58",
+    "#b0533c",
+    "#8a6bb0",
+    "#5aa9a6",
+    "#c98bb9",
+]
 
 
 def cell_centres(grid: Grid) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Coordinates of cell centres along z, y and x."""
-    return tuple(o + (np.arange(n) + 0.5) * d  # type: ignore[return-value]
-                 for n, d, o in zip(grid.shape, grid.spacing, grid.origin, strict=True))
+    return tuple(
+        o + (np.arange(n) + 0.5) * d  # type: ignore[return-value]
+        for n, d, o in zip(grid.shape, grid.spacing, grid.origin, strict=True)
+    )
 
 
 def _lazy(array: Any) -> Any:
@@ -221,8 +260,9 @@ def _lazy(array: Any) -> Any:
         def __getitem__(self, key: Any) -> np.ndarray:
             from xarray.core import indexing
 
-            return indexing.explicit_indexing_adapter(key, self.shape,
-                                                      indexing.IndexingSupport.OUTER, self._raw)
+            return indexing.explicit_indexing_adapter(
+                key, self.shape, indexing.IndexingSupport.OUTER, self._raw
+            )
 
         def _raw(self, key: tuple) -> np.ndarray:
             if any(isinstance(k, np.ndarray) for k in key):
@@ -257,11 +297,18 @@ def open_run(path: Any, *, completed_only: bool = True) -> Any:
     data_vars = {}
     for name, spec in run.variables.items():
         arr = run.array(name)
-        var = xr.Variable(("realization", "z", "y", "x"), indexing.LazilyIndexedArray(_lazy(arr)),
-                          attrs={k: json.dumps(val) if isinstance(val, list | dict) else val
-                                 for k, val in spec.items()})
+        var = xr.Variable(
+            ("realization", "z", "y", "x"),
+            indexing.LazilyIndexedArray(_lazy(arr)),
+            attrs={
+                k: json.dumps(val) if isinstance(val, list | dict) else val
+                for k, val in spec.items()
+            },
+        )
         data_vars[name] = var
-    ds = xr.Dataset(data_vars, coords={"realization": np.arange(run.size), "z": zc, "y": yc, "x": xc})
+    ds = xr.Dataset(
+        data_vars, coords={"realization": np.arange(run.size), "z": zc, "y": yc, "x": xc}
+    )
     ds["done"] = ("realization", run.done)
     ds.attrs["strataloom"] = json.dumps(run.meta)
     if completed_only:

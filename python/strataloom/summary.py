@@ -41,8 +41,14 @@ from .connectivity import body_sizes, label_bodies, well_bodies, wells_from_hard
 from .errors import MemoryLimitError
 from .runread import SUMMARY_NAME, Run, cell_centres
 
-__all__ = ["CategoricalSummary", "ContinuousSummary", "exact_quantiles", "normalised_entropy",
-           "open_summary", "summarize"]
+__all__ = [
+    "CategoricalSummary",
+    "ContinuousSummary",
+    "exact_quantiles",
+    "normalised_entropy",
+    "open_summary",
+    "summarize",
+]
 
 QUANTILES = (0.1, 0.5, 0.9)
 DEFAULT_BUDGET = 256 * 2**20
@@ -180,8 +186,11 @@ def exact_quantiles(stack: np.ndarray, quantiles: Sequence[float] = QUANTILES) -
     (len(quantiles), *stack.shape[1:]) ndarray of float64
     """
     stack.sort(axis=0)  # NaNs sort last
-    n_valid = (~np.isnan(stack)).sum(axis=0) if np.issubdtype(stack.dtype, np.floating) else \
-        np.full(stack.shape[1:], stack.shape[0])
+    n_valid = (
+        (~np.isnan(stack)).sum(axis=0)
+        if np.issubdtype(stack.dtype, np.floating)
+        else np.full(stack.shape[1:], stack.shape[0])
+    )
     out = np.empty((len(quantiles), *stack.shape[1:]), dtype=np.float64)
     has = n_valid > 0
     last = np.maximum(n_valid - 1, 0)
@@ -196,8 +205,9 @@ def exact_quantiles(stack: np.ndarray, quantiles: Sequence[float] = QUANTILES) -
     return out
 
 
-def _slab_plan(shape: tuple[int, int, int], n: int, itemsize: int, budget: int,
-               chunk_depth: int) -> list[tuple[slice, slice]]:
+def _slab_plan(
+    shape: tuple[int, int, int], n: int, itemsize: int, budget: int, chunk_depth: int
+) -> list[tuple[slice, slice]]:
     """Cut the grid into (z, y) slabs whose values for n realizations fit the budget."""
     nz, ny, nx = shape
     layer = n * ny * nx * itemsize
@@ -211,39 +221,70 @@ def _slab_plan(shape: tuple[int, int, int], n: int, itemsize: int, budget: int,
     if row > budget:
         raise MemoryLimitError(
             f"The parameter 'memory_budget' must be at least {row} bytes to hold one row of x for "
-            f"{n} realizations; got {budget}. Raise memory_budget or drop the quantiles.")
+            f"{n} realizations; got {budget}. Raise memory_budget or drop the quantiles."
+        )
     rows = max(1, budget // row)
-    return [(slice(z, z + 1), slice(y, min(y + rows, ny))) for z in range(nz) for y in range(0, ny, rows)]
+    return [
+        (slice(z, z + 1), slice(y, min(y + rows, ny)))
+        for z in range(nz)
+        for y in range(0, ny, rows)
+    ]
 
 
 def _validate_wells(wells: Any, shape: tuple[int, int, int]) -> dict[str, np.ndarray]:
     if wells is None:
         return {}
     if not isinstance(wells, Mapping):
-        raise v.fail_type("wells", "a mapping of well name to an (m, 3) array of cells", wells, "summarize")
+        raise v.fail_type(
+            "wells", "a mapping of well name to an (m, 3) array of cells", wells, "summarize"
+        )
     out = {}
     for name, cells in wells.items():
         c = np.asarray(cells)
-        if c.ndim != 2 or c.shape[1] != 3 or c.shape[0] == 0 or not np.issubdtype(c.dtype, np.integer):
-            raise v.fail(f"wells['{name}']", "a non-empty (m, 3) integer array of (iz, iy, ix) cells",
-                         f"an array of shape {c.shape} and dtype {c.dtype}", "summarize")
+        if (
+            c.ndim != 2
+            or c.shape[1] != 3
+            or c.shape[0] == 0
+            or not np.issubdtype(c.dtype, np.integer)
+        ):
+            raise v.fail(
+                f"wells['{name}']",
+                "a non-empty (m, 3) integer array of (iz, iy, ix) cells",
+                f"an array of shape {c.shape} and dtype {c.dtype}",
+                "summarize",
+            )
         if (c < 0).any() or (c >= np.array(shape)).any():
-            raise v.fail(f"wells['{name}']", f"cells inside the grid {shape}", "cells outside it",
-                         "summarize")
+            raise v.fail(
+                f"wells['{name}']",
+                f"cells inside the grid {shape}",
+                "cells outside it",
+                "summarize",
+            )
         out[str(name)] = c.astype(np.int64)
     return out
 
 
 def _pct(values: np.ndarray, axis: int = 0) -> dict[str, Any]:
     q = np.quantile(np.asarray(values, dtype=np.float64), QUANTILES, axis=axis)
-    return {"P10": q[0].tolist(), "P50": q[1].tolist(), "P90": q[2].tolist(),
-            "mean": np.mean(values, axis=axis).tolist()}
+    return {
+        "P10": q[0].tolist(),
+        "P50": q[1].tolist(),
+        "P90": q[2].tolist(),
+        "mean": np.mean(values, axis=axis).tolist(),
+    }
 
 
-def summarize(run: Run | str | os.PathLike, *, output: Any = None, variables: Sequence[str] | None = None,
-              wells: Mapping[str, Any] | None = None, connectivity: int = 6,
-              memory_budget: int = DEFAULT_BUDGET, quantiles: bool = True,
-              progress: Any = None) -> Path:
+def summarize(
+    run: Run | str | os.PathLike,
+    *,
+    output: Any = None,
+    variables: Sequence[str] | None = None,
+    wells: Mapping[str, Any] | None = None,
+    connectivity: int = 6,
+    memory_budget: int = DEFAULT_BUDGET,
+    quantiles: bool = True,
+    progress: Any = None,
+) -> Path:
     """Summarise a run's realizations into ``summary.zarr``.
 
     Parameters
@@ -259,7 +300,8 @@ def summarize(run: Run | str | os.PathLike, *, output: Any = None, variables: Se
     wells : mapping of str to (m, 3) int arrays, optional
         Cells of each well for the connected volumes and the well-to-well matrix. Default: the
         hard-data cells grouped into 26-connected chains (see
-        :func:`~strataloom.connectivity.wells_from_hard_data`); no wells if the run has no hard data.
+        :func:`~strataloom.connectivity.wells_from_hard_data`); no wells if the run has no hard
+        data.
     connectivity : {6, 26}
         Neighbourhood of the facies bodies (6: shared faces).
     memory_budget : int, default 256 MiB
@@ -285,8 +327,12 @@ def summarize(run: Run | str | os.PathLike, *, output: Any = None, variables: Se
     for name in names:
         r.kind(name)
     if r.completed.size == 0:
-        raise v.fail("run", "a run with at least one finished realization (done == 1)",
-                     f"{r.size} realizations, none done", "summarize")
+        raise v.fail(
+            "run",
+            "a run with at least one finished realization (done == 1)",
+            f"{r.size} realizations, none done",
+            "summarize",
+        )
     shape = r.grid.shape
     if wells is None:
         hd = r.hard_data()
@@ -294,6 +340,7 @@ def summarize(run: Run | str | os.PathLike, *, output: Any = None, variables: Se
     else:
         well_cells = _validate_wells(wells, shape)
     from .connectivity import structure
+
     structure(connectivity)  # validates
 
     out = Path(output) if output is not None else r.path / SUMMARY_NAME
@@ -302,7 +349,6 @@ def summarize(run: Run | str | os.PathLike, *, output: Any = None, variables: Se
         shutil.rmtree(tmp)
     group = zarr.open_group(tmp, mode="w", zarr_format=3)
     zc, yc, xc = cell_centres(r.grid)
-    nz, ny, nx = shape
     _coord(group, "z", zc)
     _coord(group, "y", yc)
     _coord(group, "x", xc)
@@ -319,22 +365,32 @@ def summarize(run: Run | str | os.PathLike, *, output: Any = None, variables: Se
                 cats = r.categories(name)
                 codes = [c["code"] for c in cats]
                 _coord(group, f"{name}_category", np.asarray(codes, dtype=np.int64))
-                tables[name] = _categorical(r, name, codes, group, well_cells, connectivity,
-                                            cell_volume, progress)
+                tables[name] = _categorical(
+                    r, name, codes, group, well_cells, connectivity, cell_volume, progress
+                )
                 var_meta[name] = {"kind": "categorical", "categories": cats}
             else:
                 _continuous(r, name, group, budget, quantiles, progress)
-                var_meta[name] = {"kind": "continuous",
-                                  **{k: val for k, val in r.variables[name].items() if k != "kind"}}
+                var_meta[name] = {
+                    "kind": "continuous",
+                    **{k: val for k, val in r.variables[name].items() if k != "kind"},
+                }
         group.attrs["strataloom"] = {
-            "format": "summary", "format_version": 1, "realizations": n,
-            "realizations_total": r.size, "grid": r.meta.get("grid"), "variables": var_meta,
-            "connectivity": connectivity, "quantiles": list(QUANTILES),
+            "format": "summary",
+            "format_version": 1,
+            "realizations": n,
+            "realizations_total": r.size,
+            "grid": r.meta.get("grid"),
+            "variables": var_meta,
+            "connectivity": connectivity,
+            "quantiles": list(QUANTILES),
             "quantile_method": "exact, numpy 'linear' (Hyndman & Fan type 7), per slab",
             "variance": "population (ddof=0) by Welford's update",
             "wells": {k: c.tolist() for k, c in well_cells.items()},
-            "cell_volume": cell_volume, "tables": tables,
-            "source_version": r.meta.get("version"), "seeds": r.meta.get("seeds"),
+            "cell_volume": cell_volume,
+            "tables": tables,
+            "source_version": r.meta.get("version"),
+            "seeds": r.meta.get("seeds"),
         }
         _replace(tmp, out)
     except BaseException:
@@ -348,17 +404,32 @@ def _coord(group: Any, name: str, values: np.ndarray) -> None:
     a[...] = values
 
 
-def _grid_array(group: Any, name: str, dtype: Any, fill: Any, shape: tuple[int, int, int],
-                lead: tuple[tuple[str, int], ...] = ()) -> Any:
-    dims = tuple(d for d, _ in lead) + ("z", "y", "x")
+def _grid_array(
+    group: Any,
+    name: str,
+    dtype: Any,
+    fill: Any,
+    shape: tuple[int, int, int],
+    lead: tuple[tuple[str, int], ...] = (),
+) -> Any:
+    dims = (*(d for d, _ in lead), "z", "y", "x")
     full = tuple(s for _, s in lead) + shape
     chunks = tuple(1 for _ in lead) + shape
-    return group.create_array(name, shape=full, chunks=chunks, dtype=dtype, fill_value=fill,
-                              dimension_names=dims)
+    return group.create_array(
+        name, shape=full, chunks=chunks, dtype=dtype, fill_value=fill, dimension_names=dims
+    )
 
 
-def _categorical(r: Run, name: str, codes: list[int], group: Any, wells: dict[str, np.ndarray],
-                 connectivity: int, cell_volume: float, progress: Any) -> dict[str, Any]:
+def _categorical(
+    r: Run,
+    name: str,
+    codes: list[int],
+    group: Any,
+    wells: dict[str, np.ndarray],
+    connectivity: int,
+    cell_volume: float,
+    progress: Any,
+) -> dict[str, Any]:
     shape = r.grid.shape
     n = int(r.completed.size)
     k = len(codes)
@@ -380,23 +451,36 @@ def _categorical(r: Run, name: str, codes: list[int], group: Any, wells: dict[st
                 connected[:, :, c_i] += con
         if progress is not None:
             progress(j + 1, n)
-    prob = _grid_array(group, f"{name}_probability", "float32", np.nan, shape,
-                       ((f"{name}_category", k),))
+    prob = _grid_array(
+        group, f"{name}_probability", "float32", np.nan, shape, ((f"{name}_category", k),)
+    )
     for i in range(k):
         prob[i] = acc.probability(i)
     _grid_array(group, f"{name}_most_likely", "int16", -1, shape)[...] = acc.most_likely()
     _grid_array(group, f"{name}_entropy", "float32", np.nan, shape)[...] = acc.entropy()
-    a = group.create_array(f"{name}_proportion", shape=(n, k), dtype="float64",
-                           dimension_names=("realization", f"{name}_category"))
+    a = group.create_array(
+        f"{name}_proportion",
+        shape=(n, k),
+        dtype="float64",
+        dimension_names=("realization", f"{name}_category"),
+    )
     a[...] = proportions
     table: dict[str, Any] = {"codes": codes, "proportion": _pct(proportions)}
     if w:
-        a = group.create_array(f"{name}_well_volume", shape=(n, w, k), dtype="float64",
-                               dimension_names=("realization", "well", f"{name}_category"))
+        a = group.create_array(
+            f"{name}_well_volume",
+            shape=(n, w, k),
+            dtype="float64",
+            dimension_names=("realization", "well", f"{name}_category"),
+        )
         a[...] = volume
         p = connected / n
-        a = group.create_array(f"{name}_well_connection", shape=(w, w, k), dtype="float64",
-                               dimension_names=("well", "well_to", f"{name}_category"))
+        a = group.create_array(
+            f"{name}_well_connection",
+            shape=(w, w, k),
+            dtype="float64",
+            dimension_names=("well", "well_to", f"{name}_category"),
+        )
         a[...] = p
         table["wells"] = list(wells)
         table["well_volume"] = _pct(volume)
@@ -420,8 +504,10 @@ def _continuous(r: Run, name: str, group: Any, budget: int, quantiles: bool, pro
         mean_a[...] = mean.astype(np.float32)
         var_a[...] = var.astype(np.float32)
         return
-    q_a = [_grid_array(group, f"{name}_p{round(q * 100):02d}", "float32", np.nan, shape)
-           for q in QUANTILES]
+    q_a = [
+        _grid_array(group, f"{name}_p{round(q * 100):02d}", "float32", np.nan, shape)
+        for q in QUANTILES
+    ]
     plan = _slab_plan(shape, n, itemsize, budget, r.chunk_depth(name))
     for s, (zs, ys) in enumerate(plan):
         stack = r.slab(name, zs, ys)
@@ -451,7 +537,7 @@ def _replace(tmp: Path, out: Path) -> None:
 
 
 def open_summary(path: Any) -> Any:
-    """Open a summary store (or a run folder holding ``summary.zarr``) as an :class:`xarray.Dataset`.
+    """Open a summary store (or a run folder holding ``summary.zarr``) as an xarray Dataset.
 
     The per-realization tables and the P10/P50/P90 values are in ``attrs['strataloom']`` (JSON).
     """
@@ -461,8 +547,13 @@ def open_summary(path: Any) -> Any:
     if p.is_dir() and not (p / "zarr.json").exists() and (p / SUMMARY_NAME).is_dir():
         p = p / SUMMARY_NAME
     if not (p / "zarr.json").exists():
-        raise v.fail("path", "a summary.zarr store or a run folder holding one; run "
-                     "'strataloom summarize DIR' first", str(path), "open_summary")
+        raise v.fail(
+            "path",
+            "a summary.zarr store or a run folder holding one; run "
+            "'strataloom summarize DIR' first",
+            str(path),
+            "open_summary",
+        )
     ds = xr.open_dataset(p, engine="zarr", consolidated=False, chunks=None)
     meta = ds.attrs.get("strataloom")
     if isinstance(meta, dict):

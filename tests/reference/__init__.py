@@ -1,0 +1,1 @@
+"""Slow, obvious reference implementations used by the tests."""
