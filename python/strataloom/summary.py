@@ -16,12 +16,14 @@ Quantiles are exact: the ``linear`` rule of :func:`numpy.quantile` (Hyndman & Fa
 ``P10`` being the 10th percentile of the realizations at a cell (the value that 10 % of the
 realizations fall below). To stay within ``memory_budget`` the grid is cut into slabs of z
 layers (and, for very wide grids, rows of y) small enough that the values of every finished
-realization for one slab fit the budget; each slab is read from every realization, sorted, and
-interpolated. Memory is therefore independent of the number of realizations, at the price of
-reading each stored chunk once per slab it overlaps: with the store chunked per realization,
-a continuous variable is decompressed ``n_slabs`` times; a store chunked along z in step with the
-slabs is read once. Categorical summaries and the per-realization quantities need no quantile
-stack and read each realization once.
+realization for one slab fit the budget. Each realization is read once and cut into its slabs,
+which are appended to a scratch file beside the summary, laid out slab after slab; then each
+slab's stack (all realizations) is read back in one contiguous piece, folded into Welford's
+mean and variance, sorted and interpolated. Memory is therefore independent of the number of
+realizations; the scratch file takes ``n × cells`` values of disk for the duration of the
+summary. When the whole ensemble fits the budget, there is one slab and no scratch file.
+Categorical summaries and the per-realization quantities need no stack: counts are kept per
+cell (16-bit up to 65,535 realizations) and each realization is read once.
 """
 
 from __future__ import annotations
@@ -78,57 +80,92 @@ class CategoricalSummary:
         The category codes, in the order of the output's category axis.
     shape : tuple of int
         Shape of one realization (or of a slab of it).
+    max_count : int, default 65535
+        Largest number of realizations to be added; counters are 16-bit up to 65535, else 32-bit.
+
+    Notes
+    -----
+    The results are computed for a block of the first axis (``block``, default all), so a
+    caller can write them slab by slab without full-size floating-point temporaries.
     """
 
-    def __init__(self, codes: Sequence[int], shape: tuple[int, ...]) -> None:
+    def __init__(
+        self, codes: Sequence[int], shape: tuple[int, ...], max_count: int = 65535
+    ) -> None:
         self.codes = np.asarray(codes, dtype=np.int64)
         if self.codes.size == 0:
             raise v.fail("codes", "a non-empty sequence of category codes", list(codes))
         self.shape = tuple(shape)
         self.n = 0
-        self.counts = np.zeros((self.codes.size, *self.shape), dtype=np.uint32)
-        self.valid = np.zeros(self.shape, dtype=np.uint32)
+        self.max_count = int(max_count)
+        dtype = np.uint16 if self.max_count <= np.iinfo(np.uint16).max else np.uint32
+        self.counts = np.zeros((self.codes.size, *self.shape), dtype=dtype)
 
-    def add(self, realization: np.ndarray) -> None:
-        """Count one realization (values that are not a declared code are left out)."""
+    @property
+    def valid(self) -> np.ndarray:
+        """Number of realizations holding one of the codes, per cell (the sum of the counts)."""
+        return self._valid(slice(None))
+
+    def _valid(self, block: slice) -> np.ndarray:
+        return self.counts[(slice(None), block)].sum(axis=0, dtype=np.int64)
+
+    def add(self, realization: np.ndarray) -> np.ndarray:
+        """Count one realization; returns the number of its cells holding each code.
+
+        Values that are not a declared code are left out.
+        """
         r = np.asarray(realization)
         if r.shape != self.shape:
             raise v.fail("realization", f"an array of shape {self.shape}", f"shape {r.shape}")
+        if self.n >= self.max_count:
+            raise v.fail(
+                "max_count",
+                f"at least {self.n + 1} for this many realizations",
+                self.max_count,
+                "CategoricalSummary",
+            )
+        seen = np.zeros(self.codes.size, dtype=np.int64)
         for k, c in enumerate(self.codes):
             hit = r == c
             self.counts[k] += hit
-            self.valid += hit
+            seen[k] = np.count_nonzero(hit)
         self.n += 1
+        return seen
 
-    def probability(self, k: int) -> np.ndarray:
+    def probability(self, k: int, block: slice = slice(None)) -> np.ndarray:
         """Probability of category ``k`` per cell (float32; NaN where no realization has a code)."""
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return (self.counts[k] / self.valid).astype(np.float32)
-
-    def most_likely(self) -> np.ndarray:
-        """Code of the most frequent category per cell (int16; -1 where none; ties: lower code)."""
-        best = self.counts[0].copy()
-        arg = np.zeros(self.shape, dtype=np.int16)
-        for k in range(1, self.codes.size):
-            better = self.counts[k] > best
-            arg[better] = k
-            np.maximum(best, self.counts[k], out=best)
-        out = self.codes[arg].astype(np.int16)
-        out[self.valid == 0] = -1
+        valid = self._valid(block)
+        out = np.full(valid.shape, np.nan, dtype=np.float32)
+        np.divide(self.counts[k][block], valid, out=out, where=valid > 0, dtype=np.float32)
         return out
 
-    def entropy(self) -> np.ndarray:
+    def most_likely(self, block: slice = slice(None)) -> np.ndarray:
+        """Code of the most frequent category per cell (int16; -1 where none; ties: lower code)."""
+        best = self.counts[0][block].copy()
+        arg = np.zeros(best.shape, dtype=np.int16)
+        for k in range(1, self.codes.size):
+            ck = self.counts[k][block]
+            arg[ck > best] = k
+            np.maximum(best, ck, out=best)
+        out = self.codes[arg].astype(np.int16)
+        out[self._valid(block) == 0] = -1
+        return out
+
+    def entropy(self, block: slice = slice(None)) -> np.ndarray:
         """Normalised entropy per cell (float32, NaN where no realization has a code)."""
         k = self.codes.size
+        valid = self._valid(block)
         if k < 2:
-            return np.where(self.valid > 0, 0.0, np.nan).astype(np.float32)
-        h = np.zeros(self.shape, dtype=np.float64)
+            return np.where(valid > 0, 0.0, np.nan).astype(np.float32)
+        h = np.zeros(valid.shape, dtype=np.float64)
         for i in range(k):
-            with np.errstate(divide="ignore", invalid="ignore"):
-                p = self.counts[i] / self.valid
-                h -= np.where(p > 0, p * np.log(np.where(p > 0, p, 1.0)), 0.0)
+            p = np.zeros(valid.shape, dtype=np.float64)
+            np.divide(self.counts[i][block], valid, out=p, where=valid > 0)
+            lp = np.zeros_like(p)
+            np.log(p, out=lp, where=p > 0)
+            h -= p * lp
         h /= math.log(k)
-        h[self.valid == 0] = np.nan
+        h[valid == 0] = np.nan
         return h.astype(np.float32)
 
 
@@ -370,7 +407,7 @@ def summarize(
                 )
                 var_meta[name] = {"kind": "categorical", "categories": cats}
             else:
-                _continuous(r, name, group, budget, quantiles, progress)
+                _continuous(r, name, group, budget, quantiles, progress, tmp)
                 var_meta[name] = {
                     "kind": "continuous",
                     **{k: val for k, val in r.variables[name].items() if k != "kind"},
@@ -411,13 +448,20 @@ def _grid_array(
     fill: Any,
     shape: tuple[int, int, int],
     lead: tuple[tuple[str, int], ...] = (),
+    depth: int | None = None,
 ) -> Any:
     dims = (*(d for d, _ in lead), "z", "y", "x")
     full = tuple(s for _, s in lead) + shape
-    chunks = tuple(1 for _ in lead) + shape
+    cz = shape[0] if depth is None else max(1, min(depth, shape[0]))
+    chunks = (*(1 for _ in lead), cz, shape[1], shape[2])
     return group.create_array(
         name, shape=full, chunks=chunks, dtype=dtype, fill_value=fill, dimension_names=dims
     )
+
+
+def _block_depth(shape: tuple[int, int, int], cells: int = 1 << 18) -> int:
+    """Number of z layers holding at most ``cells`` cells (at least one)."""
+    return max(1, min(shape[0], cells // (shape[1] * shape[2])))
 
 
 def _categorical(
@@ -433,31 +477,43 @@ def _categorical(
     shape = r.grid.shape
     n = int(r.completed.size)
     k = len(codes)
-    acc = CategoricalSummary(codes, shape)
+    acc = CategoricalSummary(codes, shape, max_count=n)
     proportions = np.zeros((n, k))
     w = len(wells)
     volume = np.zeros((n, w, k))
     connected = np.zeros((w, w, k))
     for j, (_, real) in enumerate(r.iter_realizations(name)):
-        acc.add(real)
-        valid = max(int(np.isin(real, codes).sum()), 1)
-        for c_i, c in enumerate(codes):
-            mask = real == c
-            proportions[j, c_i] = np.count_nonzero(mask) / valid
-            if w:
-                labels, nb = label_bodies(mask, connectivity)
+        seen = acc.add(real)
+        proportions[j] = seen / max(int(seen.sum()), 1)
+        if w:
+            for c_i, c in enumerate(codes):
+                labels, nb = label_bodies(real == c, connectivity)
                 vol, con = well_bodies(labels, body_sizes(labels, nb), wells)
                 volume[j, :, c_i] = vol * cell_volume
                 connected[:, :, c_i] += con
+                del labels
+        del real
         if progress is not None:
             progress(j + 1, n)
+    depth = _block_depth(shape)
     prob = _grid_array(
-        group, f"{name}_probability", "float32", np.nan, shape, ((f"{name}_category", k),)
+        group,
+        f"{name}_probability",
+        "float32",
+        np.nan,
+        shape,
+        ((f"{name}_category", k),),
+        depth=depth,
     )
-    for i in range(k):
-        prob[i] = acc.probability(i)
-    _grid_array(group, f"{name}_most_likely", "int16", -1, shape)[...] = acc.most_likely()
-    _grid_array(group, f"{name}_entropy", "float32", np.nan, shape)[...] = acc.entropy()
+    most = _grid_array(group, f"{name}_most_likely", "int16", -1, shape, depth=depth)
+    ent = _grid_array(group, f"{name}_entropy", "float32", np.nan, shape, depth=depth)
+    for z in range(0, shape[0], depth):
+        b = slice(z, min(z + depth, shape[0]))
+        for i in range(k):
+            prob[i, b] = acc.probability(i, b)
+        most[b] = acc.most_likely(b)
+        ent[b] = acc.entropy(b)
+    del acc
     a = group.create_array(
         f"{name}_proportion",
         shape=(n, k),
@@ -488,42 +544,77 @@ def _categorical(
     return table
 
 
-def _continuous(r: Run, name: str, group: Any, budget: int, quantiles: bool, progress: Any) -> None:
+def _continuous(
+    r: Run, name: str, group: Any, budget: int, quantiles: bool, progress: Any, scratch: Path
+) -> None:
+    """Mean, variance and quantiles of a continuous variable, slab by slab.
+
+    With more than one slab, each realization is read once and its slabs are appended to a
+    scratch file laid out slab after slab (``n`` realizations per slab, contiguous), so every slab's
+    stack is then one contiguous read; the scratch file holds ``n * cells`` values on disk.
+    """
     shape = r.grid.shape
     n = int(r.completed.size)
-    itemsize = np.dtype(r.array(name).dtype).itemsize
-    mean_a = _grid_array(group, f"{name}_mean", "float32", np.nan, shape)
-    var_a = _grid_array(group, f"{name}_variance", "float32", np.nan, shape)
-    if not quantiles:
-        acc = ContinuousSummary(shape)
-        for j, (_, real) in enumerate(r.iter_realizations(name)):
-            acc.add(real)
+    dtype = np.dtype(r.array(name).dtype)
+    plan = _slab_plan(shape, n, dtype.itemsize, budget, r.chunk_depth(name))
+    layers = plan[0][0].stop - plan[0][0].start
+    depth = layers if plan[0][1] == slice(0, shape[1]) else 1
+    mean_a = _grid_array(group, f"{name}_mean", "float32", np.nan, shape, depth=depth)
+    var_a = _grid_array(group, f"{name}_variance", "float32", np.nan, shape, depth=depth)
+    q_a = (
+        [
+            _grid_array(
+                group, f"{name}_p{round(q * 100):02d}", "float32", np.nan, shape, depth=depth
+            )
+            for q in QUANTILES
+        ]
+        if quantiles
+        else []
+    )
+    sizes = [(zs.stop - zs.start) * (ys.stop - ys.start) * shape[2] for zs, ys in plan]
+    offsets = np.concatenate([[0], np.cumsum(sizes)]) * n * dtype.itemsize
+    spill = None
+    try:
+        if len(plan) > 1:
+            spill = scratch.with_name(scratch.name + f".{name}.stack")
+            with open(spill, "wb") as fh:
+                fh.truncate(int(offsets[-1]))
+                for j, (_, real) in enumerate(r.iter_realizations(name)):
+                    for s, (zs, ys) in enumerate(plan):
+                        fh.seek(int(offsets[s] + j * sizes[s] * dtype.itemsize))
+                        fh.write(np.ascontiguousarray(real[zs, ys, :]).tobytes())
+                    del real
+                    if progress is not None:
+                        progress(j + 1, n + len(plan))
+        for s, (zs, ys) in enumerate(plan):
+            dz, dy = zs.stop - zs.start, ys.stop - ys.start
+            if spill is None:
+                stack = r.slab(name, zs, ys)
+            else:
+                stack = np.fromfile(
+                    spill, dtype=dtype, count=n * sizes[s], offset=int(offsets[s])
+                ).reshape(n, dz, dy, shape[2])
+            acc = ContinuousSummary(stack.shape[1:])
+            for j in range(n):
+                acc.add(stack[j])
+            mean, var = acc.result()
+            mean_a[zs, ys, :] = mean.astype(np.float32)
+            var_a[zs, ys, :] = var.astype(np.float32)
+            del mean, var, acc
+            if quantiles:
+                qs = exact_quantiles(stack)
+                for i, arr in enumerate(q_a):
+                    arr[zs, ys, :] = qs[i].astype(np.float32)
+                del qs
+            del stack
             if progress is not None:
-                progress(j + 1, n)
-        mean, var = acc.result()
-        mean_a[...] = mean.astype(np.float32)
-        var_a[...] = var.astype(np.float32)
-        return
-    q_a = [
-        _grid_array(group, f"{name}_p{round(q * 100):02d}", "float32", np.nan, shape)
-        for q in QUANTILES
-    ]
-    plan = _slab_plan(shape, n, itemsize, budget, r.chunk_depth(name))
-    for s, (zs, ys) in enumerate(plan):
-        stack = r.slab(name, zs, ys)
-        acc = ContinuousSummary(stack.shape[1:])
-        for j in range(n):
-            acc.add(stack[j])
-        mean, var = acc.result()
-        mean_a[zs, ys, :] = mean.astype(np.float32)
-        var_a[zs, ys, :] = var.astype(np.float32)
-        del mean, var, acc
-        qs = exact_quantiles(stack.astype(np.float32, copy=False))
-        for i, arr in enumerate(q_a):
-            arr[zs, ys, :] = qs[i].astype(np.float32)
-        del stack, qs
-        if progress is not None:
-            progress(s + 1, len(plan))
+                progress(
+                    n + s + 1 if spill is not None else s + 1,
+                    n + len(plan) if spill is not None else len(plan),
+                )
+    finally:
+        if spill is not None:
+            spill.unlink(missing_ok=True)
 
 
 def _replace(tmp: Path, out: Path) -> None:

@@ -1,1 +1,0 @@
-"""Slow, obvious reference implementations used by the tests."""
