@@ -146,6 +146,7 @@ def test_check_run_verdicts(tmp_path):
     assert names == [
         "Hard data honoured",
         "Proportions against the target",
+        "Proportions against the TI",
         "Soft data agreement",
         "Indicator variograms against the TI",
         "Pattern histograms against the TI",

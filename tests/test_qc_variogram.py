@@ -135,3 +135,14 @@ def test_variogram_parameters_are_checked():
         variogram_axes(np.zeros((3, 3)), 2, mask=np.ones((2, 2), bool))
     with pytest.raises(sl.ParameterError, match="'facies'"):
         fit_truncated_gaussian(np.zeros((3, 4)), [0.5, 0.5], [0, 1], 5)
+
+
+def test_indicator_variograms_equal_brute_force_with_unknown_cells():
+    f = RNG.integers(-1, 3, (4, 9, 11))  # -1: not a declared code, left out
+    got = indicator_variograms(f, [0, 1, 2], 6)
+    valid = f >= 0
+    for k in range(3):
+        for ax in range(3):
+            # reference: brute-force NumPy variogram in tests/reference/variogram.py
+            ref = variogram_axis((f == k).astype(float), ax, 6, valid)
+            np.testing.assert_allclose(got[k, ax], ref, rtol=1e-9, atol=1e-12, equal_nan=True)
