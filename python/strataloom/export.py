@@ -10,6 +10,7 @@ from __future__ import annotations
 import csv
 import json
 import os
+import re
 import xml.etree.ElementTree as ET
 from collections.abc import Mapping, Sequence
 from pathlib import Path
@@ -188,7 +189,7 @@ def _summary_arrays(r: Run) -> dict[str, np.ndarray]:
             cats = meta["variables"].get(var, {}).get("categories", [])
             for k in range(da.shape[0]):
                 label = cats[k]["name"] if k < len(cats) else str(k)
-                out[f"{var}_p_{label.replace(' ', '_')}"] = da.values[k]
+                out[f"{var}_p_{_safe(label)}"] = da.values[k]
     return out
 
 
@@ -232,7 +233,7 @@ def export_run(
                 written.append(write_vti(folder / f"realization_{i:04d}.vti", arrays, r.grid))
             else:
                 for name, a in arrays.items():
-                    f = folder / f"{name}_{i:04d}.npy"
+                    f = folder / f"{_safe(name)}_{i:04d}.npy"
                     np.save(f, a)
                     written.append(f)
         if summary:
@@ -241,7 +242,7 @@ def export_run(
                 written.append(write_vti(folder / "summary.vti", fields, r.grid))
             elif fields:
                 for name, a in fields.items():
-                    f = folder / f"summary_{name}.npy"
+                    f = folder / f"summary_{_safe(name)}.npy"
                     np.save(f, a)
                     written.append(f)
         return written
@@ -290,7 +291,7 @@ def _export_csv(r: Run, folder: Path) -> list[Path]:
                     pct_rows.append(_pct_row(label, vol[:, j, k]))
             con = ds[f"{var}_well_connection"].values
             for k, nm in enumerate(names):
-                f = folder / f"well_connection_{var}_{nm.replace(' ', '_')}.csv"
+                f = folder / f"well_connection_{_safe(var)}_{_safe(nm)}.csv"
                 with open(f, "w", newline="", encoding="utf-8") as fh:
                     wr = csv.writer(fh)
                     wr.writerow(["well", *table["wells"]])
@@ -311,6 +312,11 @@ def _export_csv(r: Run, folder: Path) -> list[Path]:
         wr.writerows(pct_rows)
     written.insert(1, f)
     return written
+
+
+def _safe(name: str) -> str:
+    """A file-name-safe form of a variable or category name."""
+    return re.sub(r"[^A-Za-z0-9._-]+", "_", name).strip("_") or "unnamed"
 
 
 def _pct_row(label: str, x: np.ndarray) -> list[Any]:
