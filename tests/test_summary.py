@@ -169,3 +169,14 @@ def test_summary_needs_a_finished_realization(tmp_path):
     write_store(tmp_path, {"facies": facies}, done=[0, 0])
     with pytest.raises(sl.ParameterError, match="at least one finished realization"):
         summarize(tmp_path)
+
+
+def test_without_quantiles_only_mean_and_variance_are_written(tmp_path):
+    _, poro = _ensemble()
+    write_store(tmp_path, {"porosity": poro})
+    ds = open_summary(summarize(tmp_path, quantiles=False, memory_budget=9 * 6 * 4 * 7))
+    assert "porosity_p50" not in ds and "porosity_mean" in ds
+    # Welford's running variance against numpy.var (population, ddof=0)
+    np.testing.assert_allclose(
+        ds["porosity_variance"].values, poro.astype(float).var(axis=0), rtol=1e-5
+    )
