@@ -7,11 +7,15 @@ from importlib.metadata import version as _version
 
 from . import training
 from .errors import MemoryLimitError, ParameterError, ParameterTypeError, StudyError
+from .export import export_run
 from .grid import Grid
 from .paths import conflict_free_batches, random_path, uniform_draws
+from .qc import check_run
+from .report import build_report
+from .runread import Run, open_run
+from .summary import open_summary, summarize
 from .tau import tau_merge
 from .template import Template
-from .tree import PatternTree
 from .training import (
     Bodies,
     Channels,
@@ -22,6 +26,7 @@ from .training import (
     gaussian_field,
     rank_training_images,
 )
+from .tree import PatternTree
 
 try:
     __version__ = _version("strataloom")
@@ -38,16 +43,23 @@ __all__ = [
     "ParameterTypeError",
     "PatternTree",
     "PropertyModel",
+    "Run",
     "StudyError",
     "Template",
     "TrainingImage",
     "__version__",
+    "build_report",
     "build_training_image",
+    "check_run",
     "conflict_free_batches",
+    "export_run",
     "gaussian_field",
+    "open_run",
+    "open_summary",
     "random_path",
-    "tau_merge",
     "rank_training_images",
+    "summarize",
+    "tau_merge",
     "training",
     "uniform_draws",
 ]
