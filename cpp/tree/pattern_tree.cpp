@@ -191,6 +191,13 @@ std::int64_t PatternTree::memory_bytes() const noexcept {
   return b;
 }
 
+std::int64_t PatternTree::node_bytes() const noexcept {
+  std::int64_t b = 0;
+  for (const auto& L : levels_)
+    b += static_cast<std::int64_t>((L.first_child.size() + L.first_centre.size() + L.counts.size()) * sizeof(std::uint32_t));
+  return b;
+}
+
 EventAnswer PatternTree::query(int level, const std::int32_t* index, const std::uint8_t* value, int m,
                                std::int64_t min_replicates, bool stop_when_pure, QueryScratch& sc) const {
   const Level& L = levels_[static_cast<std::size_t>(level)];

@@ -68,6 +68,8 @@ class PatternTree {
   std::size_t template_size() const noexcept { return template_.size(); }
   std::int64_t node_count(int level) const;
   std::int64_t memory_bytes() const noexcept;
+  // Bytes of the per-node arrays (counts, child and centre starts) over all levels.
+  std::int64_t node_bytes() const noexcept;
   // Centre counts per category over the whole TI (the root's counts).
   const std::vector<std::int64_t>& category_counts() const noexcept { return root_counts_; }
   std::int64_t centre_count() const noexcept { return static_cast<std::int64_t>(centres_.size()); }
