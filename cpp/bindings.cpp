@@ -249,6 +249,7 @@ void bind_tree(py::module_& m) {
       .def_property_readonly("levels", &sl::PatternTree::levels)
       .def_property_readonly("categories", &sl::PatternTree::categories)
       .def_property_readonly("memory_bytes", &sl::PatternTree::memory_bytes)
+      .def_property_readonly("node_bytes", &sl::PatternTree::node_bytes)
       .def_property_readonly("category_counts", [](const sl::PatternTree& t) {
         auto v = t.category_counts();
         return vector_to_array(std::move(v));
@@ -310,6 +311,8 @@ void bind_tree(py::module_& m) {
              st["mean_kept"] = stats.mean_kept;
              st["scans"] = stats.scans;
              st["relocated"] = stats.relocated;
+             st["mean_visited"] = stats.mean_visited;
+             st["seconds"] = stats.seconds;
              return py::make_tuple(vector_to_array(std::move(out)), st);
            },
            py::arg("shape"), py::arg("hard"), py::arg("soft"), py::arg("tau"), py::arg("target"), py::arg("steering"),

@@ -62,10 +62,14 @@ min_replicates = 2
 [ensemble]
 realizations = {n}
 seed = 42
+
+[output]
+summary = {products}
+report = {products}
 """
 
 
-def write_small_study(folder: Path, *, shape=(4, 16, 16), n=4, soft=False) -> Path:
+def write_small_study(folder: Path, *, shape=(4, 16, 16), n=4, soft=False, products=False) -> Path:
     """Write an invented small study (TI, 3 vertical wells in one CSV, one deviated LAS well)."""
     folder = Path(folder)
     (folder / "wells").mkdir(parents=True, exist_ok=True)
@@ -96,5 +100,9 @@ def write_small_study(folder: Path, *, shape=(4, 16, 16), n=4, soft=False) -> Pa
         np.save(folder / "attr.npy", cube)
         soft_text = '\n[soft_data]\nattributes = ["attr.npy"]\npatch = [0, 1, 1]\ncomponents = 3\n'
     path = folder / "study.toml"
-    path.write_text(STUDY.format(nz=nz, ny=ny, nx=nx, top=float(nz), n=n, soft=soft_text))
+    path.write_text(
+        STUDY.format(
+            nz=nz, ny=ny, nx=nx, top=float(nz), n=n, soft=soft_text, products=str(products).lower()
+        )
+    )
     return path

@@ -20,6 +20,7 @@ from study_helpers import write_small_study
 
 
 def _tree_bytes(folder: Path) -> dict[str, bytes]:
+    """Every file of a run folder's realizations store and conditioning data, by relative path."""
     return {
         p.relative_to(folder).as_posix(): p.read_bytes()
         for p in sorted(folder.rglob("*"))
@@ -44,7 +45,7 @@ def test_seeds_follow_numpy_seed_sequence():
 def test_small_study_end_to_end_honours_hard_data(tmp_path):
     import xarray as xr
 
-    p = write_small_study(tmp_path / "s", shape=(4, 16, 16), n=5, soft=True)
+    p = write_small_study(tmp_path / "s", shape=(4, 16, 16), n=5, soft=True, products=True)
     study = load_study(p)
     summary = run_study(study, tmp_path / "run", processes=1, progress=False)
     assert summary.ensemble.computed == [0, 1, 2, 3, 4]
@@ -98,6 +99,10 @@ def test_small_study_end_to_end_honours_hard_data(tmp_path):
     assert ds["facies"].dims == ("realization", "z", "y", "x")
     np.testing.assert_array_equal(ds["facies"].values, facies)
     assert json.loads(json.dumps(ds.attrs["strataloom"])) == attrs
+    # the summary and report steps of [output] ran on the finished store
+    assert (tmp_path / "run" / "summary.zarr").is_dir()
+    assert (tmp_path / "run" / "report.html").stat().st_size > 1000
+    assert any(line.startswith("report ") for line in summary.extras)
     # realizations differ from each other but share the data
     assert len({facies[i].tobytes() for i in range(5)}) == 5
 

@@ -31,7 +31,7 @@ def tree_cases(draw):
     level = draw(st.integers(0, max_level))
     m = draw(st.integers(0, len(tpl)))
     chosen = rng.choice(len(tpl), size=m, replace=False)
-    values = rng.integers(0, k, size=m)
+    values = rng.integers(0, int(ti.max()) + 1, size=m)
     min_rep = draw(st.integers(1, 4))
     return ti, tpl, levels, level, chosen, values, min_rep
 

@@ -108,7 +108,7 @@ def test_ctrl_c_stops_a_simulation():
     t0 = time.monotonic()
     timer.start()
     with pytest.raises(KeyboardInterrupt):
-        big.simulate((200, 200, 200), seed=0, threads=2)
+        big.simulate((100, 100, 100), seed=0, threads=2)
     timer.join()
     assert time.monotonic() - t0 < 2.5
     assert len(os.listdir("/proc/self/task")) <= before

@@ -4,6 +4,7 @@
 
 #include <algorithm>
 #include <array>
+#include <bit>
 #include <string>
 
 #include "core/error.hpp"
@@ -81,9 +82,9 @@ void PatternTree::build_level(int level, std::int64_t memory_limit, std::int64_t
     L.delta[i] = ((Index{o[0]} << level) * padded_shape_[1] + (Index{o[1]} << level)) * padded_shape_[2] +
                  (Index{o[2]} << level);
   }
-  const std::int64_t bytes_per_node = static_cast<std::int64_t>(4 * K + 5);
-  // Working memory of the build: two orderings of the centres.
-  const std::int64_t work = static_cast<std::int64_t>(2 * N * sizeof(std::uint32_t));
+  const std::int64_t bytes_per_node = static_cast<std::int64_t>(4 * K + 8);
+  // Working memory of the build: two orderings of the centres, and the sorted centres kept.
+  const std::int64_t work = static_cast<std::int64_t>(N * (2 * sizeof(std::uint32_t) + sizeof(std::int64_t)));
   auto check = [&](std::size_t nodes) {
     const std::int64_t need = used + static_cast<std::int64_t>(nodes) * bytes_per_node + work;
     if (need > memory_limit)
@@ -93,27 +94,27 @@ void PatternTree::build_level(int level, std::int64_t memory_limit, std::int64_t
                              "training image, or raise memory_limit.");
   };
   // Root.
-  L.symbol.push_back(0);
+  L.first_centre.push_back(0);
   L.counts.resize(K);
   for (std::size_t k = 0; k < K; ++k) L.counts[k] = static_cast<std::uint32_t>(root_counts_[k]);
+  L.depth_start.push_back(0);
   std::vector<std::uint32_t> order(N), scratch(N);
   for (std::size_t i = 0; i < N; ++i) order[i] = static_cast<std::uint32_t>(i);
-  // group[j] .. group[j + 1]: the centres (in `order`) of node j of the current depth.
-  std::vector<std::uint32_t> group{0, static_cast<std::uint32_t>(N)}, next_group;
   std::size_t depth_first = 0;  // id of the first node of the current depth
-  std::vector<std::uint32_t> bucket(S);
+  std::array<std::uint32_t, 256> bucket{};
   std::vector<std::uint32_t> bucket_counts(S * K);
   const std::uint8_t* padded = padded_.data();
   for (std::size_t d = 0; d < D; ++d) {
     const std::int64_t delta = L.delta[d];
-    const std::size_t nodes_here = group.size() - 1;
-    next_group.clear();
-    next_group.push_back(0);
-    L.first_child.resize(depth_first + nodes_here);
-    for (std::size_t j = 0; j < nodes_here; ++j) {
-      L.first_child[depth_first + j] = static_cast<std::uint32_t>(L.symbol.size());
-      const std::uint32_t b = group[j], e = group[j + 1];
-      std::fill(bucket.begin(), bucket.end(), 0);
+    const std::size_t depth_end = L.first_centre.size();
+    L.depth_start.push_back(static_cast<std::uint32_t>(depth_end));
+    L.first_child.resize(depth_end);
+    for (std::size_t j = depth_first; j < depth_end; ++j) {
+      L.first_child[j] = static_cast<std::uint32_t>(L.first_centre.size());
+      // The nodes of one depth partition the centres in order.
+      const std::uint32_t b = L.first_centre[j];
+      const std::uint32_t e = j + 1 < depth_end ? L.first_centre[j + 1] : static_cast<std::uint32_t>(N);
+      std::fill(bucket.begin(), bucket.begin() + static_cast<std::ptrdiff_t>(S), 0);
       std::fill(bucket_counts.begin(), bucket_counts.end(), 0);
       for (std::uint32_t p = b; p < e; ++p) {
         const std::int64_t c = centres_[order[p]];
@@ -122,16 +123,15 @@ void PatternTree::build_level(int level, std::int64_t memory_limit, std::int64_t
         bucket[s] += 1;
         bucket_counts[s * K + padded[c]] += 1;
       }
-      // Stable counting sort of the group's centres by symbol; one child per non-empty symbol.
+      // Stable counting sort of the node's centres by symbol; one child per non-empty symbol.
       std::uint32_t start = b;
       std::array<std::uint32_t, 256> pos{};
       for (std::size_t s = 0; s < S; ++s) {
         pos[s] = start;
         if (bucket[s] == 0) continue;
-        L.symbol.push_back(static_cast<std::uint8_t>(s));
+        L.first_centre.push_back(start);
         for (std::size_t k = 0; k < K; ++k) L.counts.push_back(bucket_counts[s * K + k]);
         start += bucket[s];
-        next_group.push_back(start);
       }
       for (std::uint32_t p = b; p < e; ++p) {
         const std::int64_t c = centres_[order[p]];
@@ -140,33 +140,61 @@ void PatternTree::build_level(int level, std::int64_t memory_limit, std::int64_t
         scratch[pos[s]++] = order[p];
       }
     }
-    check(L.symbol.size());
-    if (L.symbol.size() >= (std::size_t{1} << 32) - 1)
+    check(L.first_centre.size());
+    if (L.first_centre.size() >= (std::size_t{1} << 32) - 1)
       throw MemoryLimitError("The pattern tree of level " + std::to_string(level) +
                              " would hold more than 2**32 nodes; use a template with fewer nodes.");
     order.swap(scratch);
-    group.swap(next_group);
-    depth_first += nodes_here;
+    depth_first = depth_end;
   }
+  const std::size_t total = L.first_centre.size();
+  L.depth_start.push_back(static_cast<std::uint32_t>(total));
   // Leaves have no children: their ranges are empty at the end of the array.
-  L.first_child.resize(L.symbol.size() + 1, static_cast<std::uint32_t>(L.symbol.size()));
-  L.symbol.shrink_to_fit();
+  L.first_child.resize(total + 1, static_cast<std::uint32_t>(total));
+  L.sorted.resize(N);
+  for (std::size_t p = 0; p < N; ++p) L.sorted[p] = centres_[order[p]];
+  // Bit planes in pattern order (see Level).
+  L.stride = D * K + K;
+  const std::size_t words = (N + 63) / 64;
+  const std::int64_t plane_bytes = static_cast<std::int64_t>(words * L.stride * sizeof(std::uint64_t));
+  check(total + static_cast<std::size_t>(plane_bytes / bytes_per_node));
+  L.planes.assign(words * L.stride, 0);
+  for (std::size_t p = 0; p < N; ++p) {
+    const std::int64_t c = L.sorted[p];
+    std::uint64_t* w = L.planes.data() + (p / 64) * L.stride;
+    const std::uint64_t bit = std::uint64_t{1} << (p % 64);
+    for (std::size_t i = 0; i < D; ++i) {
+      const std::uint8_t v = padded[c + L.delta[i]];
+      if (v != CategoricalImage::kMasked) w[i * K + v] |= bit;
+    }
+    w[D * K + padded[c]] |= bit;
+  }
+  used += plane_bytes;
+  L.first_centre.shrink_to_fit();
   L.counts.shrink_to_fit();
-  used += static_cast<std::int64_t>(L.symbol.size()) * bytes_per_node;
+  used += static_cast<std::int64_t>(total) * bytes_per_node + static_cast<std::int64_t>(N * sizeof(std::int64_t));
   levels_.push_back(std::move(L));
 }
 
 std::int64_t PatternTree::node_count(int level) const {
   require(level >= 0 && level < levels(), "level",
           "must be in [0, " + std::to_string(levels() - 1) + "]; got " + std::to_string(level) + ".");
-  return static_cast<std::int64_t>(levels_[static_cast<std::size_t>(level)].symbol.size());
+  return static_cast<std::int64_t>(levels_[static_cast<std::size_t>(level)].first_centre.size());
 }
 
 std::int64_t PatternTree::memory_bytes() const noexcept {
   std::int64_t b = static_cast<std::int64_t>(padded_.size() + centres_.size() * sizeof(std::int64_t));
   for (const auto& L : levels_)
-    b += static_cast<std::int64_t>(L.symbol.size() + L.first_child.size() * sizeof(std::uint32_t) +
-                                   L.counts.size() * sizeof(std::uint32_t));
+    b += static_cast<std::int64_t>((L.first_child.size() + L.first_centre.size() + L.counts.size() +
+                                    L.depth_start.size()) * sizeof(std::uint32_t) +
+                                   L.sorted.size() * sizeof(std::int64_t) + L.planes.size() * sizeof(std::uint64_t));
+  return b;
+}
+
+std::int64_t PatternTree::node_bytes() const noexcept {
+  std::int64_t b = 0;
+  for (const auto& L : levels_)
+    b += static_cast<std::int64_t>((L.first_child.size() + L.first_centre.size() + L.counts.size()) * sizeof(std::uint32_t));
   return b;
 }
 
@@ -174,6 +202,7 @@ EventAnswer PatternTree::query(int level, const std::int32_t* index, const std::
                                std::int64_t min_replicates, bool stop_when_pure, QueryScratch& sc) const {
   const Level& L = levels_[static_cast<std::size_t>(level)];
   const std::size_t K = static_cast<std::size_t>(ti_.categories);
+  const std::uint8_t missing = static_cast<std::uint8_t>(K);
   sc.best.assign(root_counts_.begin(), root_counts_.end());
   sc.counts.resize(K);
   EventAnswer ans;
@@ -185,42 +214,51 @@ EventAnswer PatternTree::query(int level, const std::int32_t* index, const std::
   };
   if (m == 0 || (stop_when_pure && pure(sc.best))) return ans;
   sc.frontier.assign(1, 0);
-  // Visiting more tree nodes than there are centres costs more than scanning the TI.
-  const std::size_t budget = centres_.size() + 64;
-  std::size_t visited = 0;
   std::size_t depth = 0;
+  const std::size_t last = static_cast<std::size_t>(index[m - 1]);
   const std::uint32_t* fc = L.first_child.data();
-  const std::uint8_t* sym = L.symbol.data();
+  const std::uint32_t* fcen = L.first_centre.data();
+  const std::int64_t* sorted = L.sorted.data();
+  const std::uint8_t* padded = padded_.data();
   const std::uint32_t* cnt = L.counts.data();
+  // Walking on costs about frontier * remaining depth; checking the frontier's centres on the TI
+  // costs about a few operations per centre (the replicates so far).
+  auto walking_is_dearer = [&]() {
+    return sc.frontier.size() * (last + 1 - depth) > static_cast<std::size_t>(ans.replicates) / 16 + 64;
+  };
   for (int k = 0; k < m; ++k) {
     const std::size_t t = static_cast<std::size_t>(index[k]);
     // Marginalise the template nodes before the next informed one: follow every branch.
     while (depth < t) {
+      if (walking_is_dearer()) return check_centres(L, index, value, m, k, min_replicates, depth, ans, sc);
       sc.next.clear();
       for (std::uint32_t j : sc.frontier)
         for (std::uint32_t c = fc[j]; c < fc[j + 1]; ++c) sc.next.push_back(c);
-      visited += sc.next.size();
-      if (visited > budget) return scan(level, index, value, m, min_replicates, sc);
+      ans.visited += static_cast<std::int64_t>(sc.next.size());
       sc.frontier.swap(sc.next);
       ++depth;
     }
-    // The informed node: keep the child holding its value.
+    if (walking_is_dearer()) return check_centres(L, index, value, m, k, min_replicates, depth, ans, sc);
+    // The informed node: keep the child holding its value (children come in symbol order).
     sc.next.clear();
     std::fill(sc.counts.begin(), sc.counts.end(), 0);
-    std::int64_t total = 0;
     const std::uint8_t v = value[k];
+    const std::int64_t delta = L.delta[t];
     for (std::uint32_t j : sc.frontier) {
       for (std::uint32_t c = fc[j]; c < fc[j + 1]; ++c) {
-        if (sym[c] < v) continue;
-        if (sym[c] == v) {
+        std::uint8_t s = padded[sorted[fcen[c]] + delta];
+        if (s == CategoricalImage::kMasked) s = missing;
+        if (s < v) continue;
+        if (s == v) {
           sc.next.push_back(c);
           for (std::size_t q = 0; q < K; ++q) sc.counts[q] += cnt[static_cast<std::size_t>(c) * K + q];
         }
         break;
       }
     }
-    visited += sc.frontier.size();
+    ans.visited += static_cast<std::int64_t>(sc.frontier.size());
     ++depth;
+    std::int64_t total = 0;
     for (std::size_t q = 0; q < K; ++q) total += sc.counts[q];
     if (total < min_replicates || total == 0) break;  // counts only fall as nodes are added
     sc.best.swap(sc.counts);
@@ -229,7 +267,58 @@ EventAnswer PatternTree::query(int level, const std::int32_t* index, const std::
     ans.kept = k + 1;
     if (stop_when_pure && pure(sc.best)) break;
     sc.frontier.swap(sc.next);
-    if (visited > budget) return scan(level, index, value, m, min_replicates, sc);
+  }
+  return ans;
+}
+
+EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index, const std::uint8_t* value, int m,
+                                       int k, std::int64_t min_replicates, std::size_t depth, EventAnswer ans,
+                                       QueryScratch& sc) const {
+  const std::size_t K = static_cast<std::size_t>(ti_.categories);
+  const std::size_t M = static_cast<std::size_t>(m);
+  const std::size_t first = static_cast<std::size_t>(k);
+  const std::uint32_t N = static_cast<std::uint32_t>(centres_.size());
+  sc.prefix_hist.assign((M + 1) * K, 0);
+  const std::uint32_t depth_end = L.depth_start[depth + 1];
+  // For every centre of the frontier, how many of the informed nodes first.. it matches in order,
+  // 64 centres at a time: `alive` holds the centres still matching, `lost` those that stop here.
+  const std::size_t stride = L.stride;
+  const std::size_t cat_base = L.delta.size() * K;
+  const std::uint64_t* planes = L.planes.data();
+  for (std::uint32_t j : sc.frontier) {
+    const std::uint32_t b = L.first_centre[j];
+    const std::uint32_t e = j + 1 < depth_end ? L.first_centre[j + 1] : N;
+    if (b >= e) continue;
+    ans.visited += e - b;
+    for (std::uint32_t w = b / 64; w <= (e - 1) / 64; ++w) {
+      const std::uint32_t lo = std::max(b, w * 64) - w * 64, hi = std::min<std::uint32_t>(e, w * 64 + 64) - w * 64;
+      std::uint64_t alive = (hi == 64 ? ~std::uint64_t{0} : ((std::uint64_t{1} << hi) - 1)) & (~std::uint64_t{0} << lo);
+      const std::uint64_t* word = planes + static_cast<std::size_t>(w) * stride;
+      std::size_t n = first;
+      for (; n < M && alive; ++n) {
+        const std::uint64_t keep = alive & word[static_cast<std::size_t>(index[n]) * K + value[n]];
+        const std::uint64_t lost = alive & ~keep;
+        if (lost)
+          for (std::size_t q = 0; q < K; ++q) sc.prefix_hist[n * K + q] += std::popcount(lost & word[cat_base + q]);
+        alive = keep;
+      }
+      if (alive)
+        for (std::size_t q = 0; q < K; ++q) sc.prefix_hist[M * K + q] += std::popcount(alive & word[cat_base + q]);
+    }
+  }
+  // Replicates of the first n nodes: the centres that match at least n of them.
+  ans.scanned = true;
+  sc.counts.assign(K, 0);
+  for (std::size_t n = M; n > first; --n) {
+    for (std::size_t q = 0; q < K; ++q) sc.counts[q] += sc.prefix_hist[n * K + q];
+    std::int64_t total = 0;
+    for (std::size_t q = 0; q < K; ++q) total += sc.counts[q];
+    if (total >= min_replicates && total > 0) {
+      sc.best = sc.counts;
+      ans.replicates = total;
+      ans.kept = static_cast<int>(n);
+      break;
+    }
   }
   return ans;
 }
@@ -237,34 +326,11 @@ EventAnswer PatternTree::query(int level, const std::int32_t* index, const std::
 EventAnswer PatternTree::scan(int level, const std::int32_t* index, const std::uint8_t* value, int m,
                               std::int64_t min_replicates, QueryScratch& sc) const {
   const Level& L = levels_[static_cast<std::size_t>(level)];
-  const std::size_t K = static_cast<std::size_t>(ti_.categories);
-  const std::size_t M = static_cast<std::size_t>(m);
-  sc.prefix_hist.assign((M + 1) * K, 0);
-  const std::uint8_t* padded = padded_.data();
-  // For every centre, the length of the prefix of the event it matches.
-  for (const std::int64_t c : centres_) {
-    std::size_t j = 0;
-    while (j < M && padded[c + L.delta[static_cast<std::size_t>(index[j])]] == value[j]) ++j;
-    sc.prefix_hist[j * K + padded[c]] += 1;
-  }
-  // Replicates of the first k nodes: the centres that match at least k of them.
   EventAnswer ans;
   sc.best.assign(root_counts_.begin(), root_counts_.end());
   ans.replicates = static_cast<std::int64_t>(centres_.size());
-  ans.scanned = true;
-  sc.counts.assign(K, 0);
-  for (std::size_t k = M; k >= 1; --k) {
-    for (std::size_t q = 0; q < K; ++q) sc.counts[q] += sc.prefix_hist[k * K + q];
-    std::int64_t total = 0;
-    for (std::size_t q = 0; q < K; ++q) total += sc.counts[q];
-    if (total >= min_replicates && total > 0) {
-      sc.best = sc.counts;
-      ans.replicates = total;
-      ans.kept = static_cast<int>(k);
-      break;
-    }
-  }
-  return ans;
+  sc.frontier.assign(1, 0);
+  return check_centres(L, index, value, m, 0, min_replicates, 0, ans, sc);
 }
 
 }  // namespace sl

@@ -9,11 +9,19 @@
 // which matches no value, so border centres count exactly as the contract says. Any subset of the
 // template may be asked: nodes not in the event are marginalised (every branch is followed).
 //
-// Layout. Nodes are numbered breadth first; node 0 is the root (the empty prefix) and a node at
-// depth d stands for the prefix of the first d template nodes. The children of node j are the
-// nodes [first_child[j], first_child[j + 1]), in increasing symbol order, so one sentinel at the end
-// closes every range. Per node: K uint32 counts (centres per centre category), one uint32 child
-// start and one uint8 symbol: 4 K + 5 bytes.
+// Layout. The centres are sorted by their pattern (template node by template node, `missing` last)
+// into `sorted`; a tree node at depth d stands for a prefix of the first d template nodes, and its
+// centres form one contiguous range of `sorted`. Nodes are numbered breadth first, node 0 being the
+// root (the empty prefix); the nodes of one depth partition `sorted` in order, and the children of
+// node j are the nodes [first_child[j], first_child[j + 1]). Per node: K uint32 counts (centres per
+// centre category), a uint32 child start and a uint32 centre start: 4 K + 8 bytes. A node's symbol
+// is read from the TI at its first centre, so it needs no storage.
+//
+// Queries walk the tree depth by depth, following every child at template nodes outside the event
+// (marginalisation) and only the matching child at informed ones. When the frontier grows so wide
+// that walking on would cost more than checking its centres one by one, the remaining informed
+// nodes are checked directly on the TI for each centre of the frontier's ranges; both ways give the
+// same exact counts.
 #pragma once
 
 #include <cstdint>
@@ -36,7 +44,8 @@ struct CategoricalImage {
 struct EventAnswer {
   std::int64_t replicates = 0;  // centres matching the kept nodes
   int kept = 0;                 // informed nodes kept (a prefix, in template order, of those asked)
-  bool scanned = false;         // answered by scanning the TI instead of the tree (cheaper case)
+  bool scanned = false;         // finished by checking centres on the TI (the cheaper way there)
+  std::int64_t visited = 0;     // tree nodes plus TI centres looked at
 };
 
 // Per-thread buffers for queries, reused so the hot loop does not allocate.
@@ -59,6 +68,8 @@ class PatternTree {
   std::size_t template_size() const noexcept { return template_.size(); }
   std::int64_t node_count(int level) const;
   std::int64_t memory_bytes() const noexcept;
+  // Bytes of the per-node arrays (counts, child and centre starts) over all levels.
+  std::int64_t node_bytes() const noexcept;
   // Centre counts per category over the whole TI (the root's counts).
   const std::vector<std::int64_t>& category_counts() const noexcept { return root_counts_; }
   std::int64_t centre_count() const noexcept { return static_cast<std::int64_t>(centres_.size()); }
@@ -71,19 +82,28 @@ class PatternTree {
   EventAnswer query(int level, const std::int32_t* index, const std::uint8_t* value, int m,
                     std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
 
-  // Same as query but by scanning the TI's centres (the reference path used when the tree would
-  // visit more nodes than there are centres).
+  // Same answer as query, by checking every centre on the TI (the reference path).
   EventAnswer scan(int level, const std::int32_t* index, const std::uint8_t* value, int m,
                    std::int64_t min_replicates, QueryScratch& scratch) const;
 
  private:
   struct Level {
-    std::vector<std::uint8_t> symbol;        // per node (root: unused)
-    std::vector<std::uint32_t> first_child;  // per node + sentinel
-    std::vector<std::uint32_t> counts;       // K per node
-    std::vector<std::int64_t> delta;         // padded flat offset of each template node
+    std::vector<std::uint32_t> first_child;   // per node + sentinel
+    std::vector<std::uint32_t> first_centre;  // per node: start of its range in `sorted`
+    std::vector<std::uint32_t> counts;        // K per node
+    std::vector<std::uint32_t> depth_start;   // first node of each depth 0..D, then the node count
+    std::vector<std::int64_t> sorted;         // padded index of each centre, in pattern order
+    std::vector<std::int64_t> delta;          // padded flat offset of each template node
+    // Bit planes over `sorted`, one 64-bit word per 64 centres: for word w, the D * K words of
+    // "template node i holds code v" (at i * K + v), then K words of "the centre holds code q".
+    std::vector<std::uint64_t> planes;
+    std::size_t stride = 0;  // words per 64 centres: D * K + K
   };
   void build_level(int level, std::int64_t memory_limit, std::int64_t& used);
+  // Finishes a query by checking informed nodes k.. on the TI for the centres of `frontier`
+  // (nodes at one depth); `ans` and scratch.best hold the answer for the first k nodes.
+  EventAnswer check_centres(const Level& L, const std::int32_t* index, const std::uint8_t* value, int m, int k,
+                            std::int64_t min_replicates, std::size_t depth, EventAnswer ans, QueryScratch& sc) const;
 
   CategoricalImage ti_;
   Template template_;

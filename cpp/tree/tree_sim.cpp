@@ -1,6 +1,7 @@
 #include "tree/tree_sim.hpp"
 
 #include <algorithm>
+#include <chrono>
 #include <cmath>
 #include <string>
 
@@ -29,7 +30,7 @@ struct Worker {
   std::vector<std::int32_t> index;
   std::vector<std::uint8_t> value;
   std::vector<double> probs, sources, merged;
-  std::int64_t informed = 0, kept = 0, scans = 0;
+  std::int64_t informed = 0, kept = 0, scans = 0, visited = 0;
 };
 
 }  // namespace
@@ -87,7 +88,9 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
                                    std::vector<double>(static_cast<std::size_t>(levels), 0.0),
                                    std::vector<double>(static_cast<std::size_t>(levels), 0.0),
                                    std::vector<std::int64_t>(static_cast<std::size_t>(levels), 0),
-                                   std::vector<std::int64_t>(static_cast<std::size_t>(levels), 0)};
+                                   std::vector<std::int64_t>(static_cast<std::size_t>(levels), 0),
+                                   std::vector<double>(static_cast<std::size_t>(levels), 0.0),
+                                   std::vector<double>(static_cast<std::size_t>(levels), 0.0)};
 
   WorkControl ctl;
   ctl.total = N;
@@ -116,6 +119,8 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
     std::sort(path.begin(), path.end());
     shuffle_path(path, opt.seed, level);
     const auto starts = conflict_free_batches(grid, level, tree.base_template().reach(), path, opt.max_batch);
+    // Preparing a level of a large grid takes a moment: give Ctrl-C a chance before running it.
+    if (poll && !poll(ctl.done.load(), ctl.total)) throw Cancelled();
     std::vector<std::int64_t> snapshot(counts);  // proportions seen by one batch
     std::int64_t informed_total = 0;
     for (auto c : counts) informed_total += c;
@@ -140,6 +145,7 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
       w.informed += m;
       w.kept += ans.kept;
       w.scans += ans.scanned;
+      w.visited += ans.visited;
       double total = 0;
       for (std::size_t k = 0; k < Ks; ++k) total += static_cast<double>(w.scratch.best[k]);
       for (std::size_t k = 0; k < Ks; ++k) w.probs[k] = static_cast<double>(w.scratch.best[k]) / total;
@@ -202,16 +208,21 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
       }
       snapshot = counts;
     };
-    for (auto& w : workers) w.informed = w.kept = w.scans = 0;
+    for (auto& w : workers) w.informed = w.kept = w.scans = w.visited = 0;
+    const auto t0 = std::chrono::steady_clock::now();
     run_batches(threads, starts, node, after_batch, ctl, poll);
+    const double seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
     if (stats) {
       const auto L = static_cast<std::size_t>(level);
-      std::int64_t inf = 0, kept = 0, scans = 0;
+      std::int64_t inf = 0, kept = 0, scans = 0, visited = 0;
       for (auto& w : workers) {
         inf += w.informed;
         kept += w.kept;
         scans += w.scans;
+        visited += w.visited;
       }
+      stats->mean_visited[L] = static_cast<double>(visited) / std::max<double>(1.0, static_cast<double>(path.size()));
+      stats->seconds[L] = seconds;
       const double n = std::max<double>(1.0, static_cast<double>(path.size()));
       stats->simulated[L] = static_cast<std::int64_t>(path.size());
       stats->mean_informed[L] = static_cast<double>(inf) / n;

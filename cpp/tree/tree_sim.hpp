@@ -32,6 +32,8 @@ struct TreeSimStats {
   std::vector<double> mean_kept;             // kept after node dropping, per level
   std::vector<std::int64_t> scans;           // events answered by a TI scan, per level
   std::vector<std::int64_t> relocated;       // hard data moved to a coarse node, per level
+  std::vector<double> mean_visited;          // tree nodes or TI centres looked at per event, per level
+  std::vector<double> seconds;               // wall time per level
 };
 
 // Simulates a realization on `grid`. `hard` holds grid.size() codes, -1 = unknown (may be empty).

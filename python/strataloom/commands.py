@@ -3,9 +3,275 @@
 from __future__ import annotations
 
 import argparse
+from collections.abc import Callable
 from pathlib import Path
 
 from .cli import command
+
+
+def _ti_arguments(parser: argparse.ArgumentParser) -> None:
+    sub = parser.add_subparsers(dest="ti_action", metavar="ACTION", required=True)
+    b = sub.add_parser("build", help="build a training image from a TOML spec",
+                       description="Build a training image from a TOML spec and write "
+                       "STEM_facies.npy (+ one .npy per property), STEM.vti, STEM_sections.png "
+                       "and STEM.json into the output folder.")
+    b.add_argument("spec", help="the TOML builder spec")
+    b.add_argument("--out", required=True, help="output folder (created if missing)")
+    b.add_argument("--seed", type=int, default=None, help="override the spec's seed")
+    b.add_argument("--stem", default="ti", help="file name stem (default: ti)")
+    b.add_argument("--no-png", action="store_true", help="skip the PNG of sections")
+    s = sub.add_parser("stats", help="statistics of a training image (.npy or .vti)",
+                       description="Proportions, largest-body share, body sizes (and optionally "
+                       "the indicator variograms) of a categorical training image.")
+    s.add_argument("ti", help="a .npy array of codes or a .vti with a 'facies' cell array")
+    s.add_argument("--spacing", type=float, nargs=3, metavar=("DZ", "DY", "DX"), default=None,
+                   help="cell sizes (default: from the .vti, else 1 1 1)")
+    s.add_argument("--connectivity", type=int, choices=(6, 26), default=6,
+                   help="6 (faces) or 26 (faces, edges and corners); default 6")
+    s.add_argument("--json", action="store_true", help="print JSON (with variograms) instead")
+    r = sub.add_parser("rank", help="rank candidate training images against well sequences",
+                       description="Compare the frequencies of vertical facies patterns of the "
+                       "wells with those of each candidate TI; best first.")
+    r.add_argument("tis", nargs="+", help="candidate TIs (.npy or .vti)")
+    r.add_argument("--wells", required=True,
+                   help="a .npy array (wells, cells) of codes (-1 = not logged), or a CSV with "
+                   "columns well,facies listed bottom up (see --top-down)")
+    r.add_argument("--length", type=int, default=4, help="pattern length in cells (default 4)")
+    r.add_argument("--top-down", action="store_true",
+                   help="the wells are listed from the top down (depth order); the TI's z "
+                   "axis points up")
+
+
+def _read_ti(path: str) -> tuple[object, tuple[float, float, float] | None]:
+    import numpy as np
+
+    from .training import read_vti
+
+    if path.endswith(".vti"):
+        arrays, spacing, _ = read_vti(path)
+        if "facies" not in arrays:
+            raise ValueError(f"{path} has no 'facies' cell array (it has {', '.join(arrays)})")
+        return arrays["facies"], spacing  # type: ignore[return-value]
+    return np.load(path, allow_pickle=False), None
+
+
+def _read_wells(path: str) -> list:
+    import csv
+
+    import numpy as np
+
+    if path.endswith(".npy"):
+        return list(np.load(path, allow_pickle=False))
+    wells: dict[str, list[int]] = {}
+    with open(path, newline="", encoding="utf-8") as f:
+        rows = csv.DictReader(f)
+        if rows.fieldnames is None or not {"well", "facies"} <= set(rows.fieldnames):
+            raise ValueError(f"{path}: the wells CSV needs the columns 'well' and 'facies'")
+        for i, row in enumerate(rows, 2):
+            try:
+                wells.setdefault(row["well"], []).append(int(row["facies"]))
+            except ValueError as e:
+                raise ValueError(f"{path}, line {i}: facies must be an integer code, "
+                                 f"got {row['facies']!r}") from e
+    return [np.array(w) for w in wells.values()]
+
+
+def _ti(args: argparse.Namespace) -> int:
+    import json
+    from pathlib import Path
+
+    from .training import build_training_image, describe, rank_training_images
+
+    if args.ti_action == "build":
+        ti = build_training_image(args.spec, seed=args.seed)
+        written = ti.save(args.out, stem=args.stem, png=not args.no_png)
+        print(ti.report())
+        for kind, p in written.items():
+            print(f"wrote {kind}: {p}")
+        return 0
+    if args.ti_action == "stats":
+        a, spacing = _read_ti(args.ti)
+        spc = tuple(args.spacing) if args.spacing else (spacing or (1.0, 1.0, 1.0))
+        st = describe(a, spacing=spc, connectivity=args.connectivity)
+        print(json.dumps(st.as_dict(), indent=1) if args.json else st.table())
+        return 0
+    cands = {Path(p).stem: _read_ti(p)[0] for p in args.tis}
+    if len(cands) != len(args.tis):
+        cands = {p: _read_ti(p)[0] for p in args.tis}
+    ranking = rank_training_images(_read_wells(args.wells), cands, length=args.length,
+                                   top_down=args.top_down)
+    print(ranking.table())
+    return 0
+
+
+_ti.arguments = _ti_arguments  # type: ignore[attr-defined]
+command("ti", "training images: build from a spec, statistics, ranking against wells")(_ti)
+def _arguments(add: Callable[[argparse.ArgumentParser], None]) -> Callable:
+    """Attach an ``add_arguments(parser)`` function to a subcommand before it is registered."""
+
+    def wrap(run: Callable) -> Callable:
+        run.arguments = add  # type: ignore[attr-defined]
+        return run
+
+    return wrap
+
+
+def _load_ti(path: str | None, run_dir: Path) -> object:
+    """A training image from a .npy file, or the one named in the study (if it is a .npy file)."""
+    import json
+
+    import numpy as np
+
+    from . import _validate as v
+    from .runread import Run
+
+    if path is None:
+        study = Run(run_dir).meta.get("study") or {}
+        ti = study.get("training_image") if isinstance(study, dict) else None
+        name = ti.get("file") if isinstance(ti, dict) else ti if isinstance(ti, str) else None
+        if not (isinstance(name, str) and name.endswith(".npy")):
+            return None
+        f = Path(name) if Path(name).is_absolute() else run_dir / name
+        if not f.is_file():
+            return None
+        path = str(f)
+    f = Path(path)
+    if f.suffix != ".npy" or not f.is_file():
+        raise v.fail(
+            "--ti",
+            "an existing .npy file holding the training image's category codes",
+            json.dumps(path),
+        )
+    return np.load(f, allow_pickle=False)
+
+
+def _summarize_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("dir", metavar="DIR", help="run folder holding realizations.zarr")
+    p.add_argument(
+        "--memory-mb",
+        type=float,
+        default=256.0,
+        help="memory for the quantile stack of one slab of cells, MiB (default 256)",
+    )
+    p.add_argument(
+        "--connectivity",
+        type=int,
+        choices=(6, 26),
+        default=6,
+        help="neighbourhood of facies bodies: 6 = faces, 26 = faces, edges, corners",
+    )
+    p.add_argument(
+        "--no-quantiles",
+        action="store_true",
+        help="skip P10/P50/P90 of continuous variables (one read per realization)",
+    )
+
+
+@command("summarize", "summarise a run's realizations into DIR/summary.zarr")
+@_arguments(_summarize_args)
+def _summarize(args: argparse.Namespace) -> int:
+    from .summary import summarize
+
+    out = summarize(
+        args.dir,
+        memory_budget=int(args.memory_mb * 2**20),
+        connectivity=args.connectivity,
+        quantiles=not args.no_quantiles,
+    )
+    print(f"wrote {out}")
+    return 0
+
+
+def _report_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("dir", metavar="DIR", help="run folder holding realizations.zarr")
+    p.add_argument(
+        "--ti",
+        metavar="FILE.npy",
+        help="training image (category codes) for the checks "
+        "against it; default: the study's, if it is a .npy file",
+    )
+    p.add_argument("--out", metavar="FILE", help="report file (default DIR/report.html)")
+    p.add_argument(
+        "--facies",
+        type=int,
+        help="code of the facies whose bodies matter (default: the least abundant)",
+    )
+    p.add_argument(
+        "--baseline",
+        action="store_true",
+        help="add a truncated-Gaussian two-point baseline to the connectivity plots",
+    )
+    p.add_argument(
+        "--connectivity",
+        type=int,
+        choices=(6, 26),
+        default=6,
+        help="neighbourhood of facies bodies",
+    )
+    p.add_argument(
+        "--memory-mb",
+        type=float,
+        default=256.0,
+        help="memory for the summary's quantile stack, MiB, if the summary is computed",
+    )
+
+
+@command("report", "write the ensemble report DIR/report.html (summarising first if needed)")
+@_arguments(_report_args)
+def _report(args: argparse.Namespace) -> int:
+    from .report import build_report
+
+    ti = _load_ti(args.ti, Path(args.dir))
+    out = build_report(
+        args.dir,
+        output=args.out,
+        ti=ti,
+        baseline=args.baseline,
+        facies=args.facies,
+        connectivity=args.connectivity,
+        memory_budget=int(args.memory_mb * 2**20),
+    )
+    print(f"wrote {out}")
+    return 0
+
+
+def _export_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("dir", metavar="DIR", help="run folder holding realizations.zarr")
+    p.add_argument(
+        "--format",
+        required=True,
+        choices=("vti", "npy", "csv"),
+        help="vti: VTK ImageData for ParaView; npy: NumPy arrays; csv: tables",
+    )
+    p.add_argument(
+        "--realizations",
+        default=None,
+        help="'all' or indices such as 0,3,5 (vti/npy; default: the first finished)",
+    )
+    p.add_argument("--out", metavar="FOLDER", help="output folder (default DIR/export)")
+    p.add_argument(
+        "--no-summary", action="store_true", help="leave out the summary fields (vti/npy)"
+    )
+
+
+@command("export", "export realizations, summaries or tables of a run")
+@_arguments(_export_args)
+def _export(args: argparse.Namespace) -> int:
+    from .export import export_run
+
+    files = export_run(
+        args.dir,
+        args.format,
+        out=args.out,
+        realizations=args.realizations,
+        summary=not args.no_summary,
+    )
+    for f in files:
+        print(f)
+    return 0
+
+
+# --- study workflow: check, run, demo ---
 
 
 def _check_arguments(p: argparse.ArgumentParser) -> None:

@@ -107,6 +107,12 @@ class PatternTree:
         """Bytes held by the trees and the padded training image."""
         return int(self._tree.memory_bytes)
 
+    @property
+    def bytes_per_node(self) -> float:
+        """Bytes of the per-node arrays divided by the stored nodes, over all levels (4 K + 8)."""
+        nodes = sum(self.node_count(g) for g in range(self._tree.levels))
+        return float(self._tree.node_bytes) / nodes
+
     def node_count(self, level: int = 0) -> int:
         """Number of stored tree nodes (distinct pattern prefixes, root included) at ``level``."""
         return int(self._tree.node_count(v.integer(level, "level", low=0, high=self._tree.levels - 1,

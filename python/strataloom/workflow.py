@@ -340,7 +340,32 @@ def run_study(
         scheduler=scheduler,
         progress=progress,
     )
-    return RunSummary(out_dir, store.path, result, prep)
+    summary = RunSummary(out_dir, store.path, result, prep)
+    finished = bool(store.done().all())
+    if finished and (study.output.summary or study.output.report):
+        summary.extras.extend(_summaries(study, prep, out_dir))
+    return summary
+
+
+def _summaries(study: Study, prep: Prepared, out_dir: Path) -> list[str]:
+    """Summary store and report of a finished run, as the study's [output] asks."""
+    lines = []
+    if study.output.summary or study.output.report:
+        from .summary import summarize
+
+        t0 = time.perf_counter()
+        path = summarize(out_dir)
+        lines.append(f"summary {path} ({time.perf_counter() - t0:.1f} s)")
+    if study.output.report:
+        from .report import build_report
+
+        t0 = time.perf_counter()
+        ti = prep.training_image
+        categorical = study.variables[study.engine.variable].kind == "categorical"
+        path = build_report(out_dir, ti=ti if categorical else None, title=study.name)
+        lines.append(f"report {path} ({time.perf_counter() - t0:.1f} s)")
+    return lines
+
 
 
 def check_study(

@@ -307,7 +307,9 @@ def run_demo(
         f"agreement with the invented truth: {agree / n:.3f} per realization, {best:.3f} for the "
         "most probable facies of the ensemble"
     )
-    extras = _summaries(root / "run", echo)
+    extras = summary.extras
+    for line in extras:
+        echo(line)
     total = time.perf_counter() - t_all
     echo(f"demo finished in {total:.1f} s; results in {root / 'run'}")
     cal = prep.calibration
@@ -324,26 +326,3 @@ def run_demo(
         "cells": study.grid.size,
         "realizations": n,
     }
-
-
-def _summaries(run_dir: Path, echo: Callable[[str], Any]) -> list[str]:
-    """Summaries and report of the run, when this build has those steps."""
-    import importlib
-
-    done = []
-    for module, func in (
-        ("strataloom.summary", "summarize_run"),
-        ("strataloom.report", "write_report"),
-    ):
-        try:
-            mod = importlib.import_module(module)
-        except ImportError:
-            continue
-        fn = getattr(mod, func, None)
-        if fn is None:
-            continue
-        fn(run_dir)
-        done.append(module)
-    if not done:
-        echo("summaries and report: not part of this build yet (realizations store written)")
-    return done

@@ -1,0 +1,44 @@
+"""asv benchmarks of the pattern-tree engine (modest sizes; compare.py runs the issue's sizes)."""
+
+from __future__ import annotations
+
+import strataloom as sl
+
+try:
+    from ._cases import facies_ti
+except ImportError:  # run as a plain script
+    from _cases import facies_ti
+
+
+class TreeBuild:
+    """Building the trees: 3 levels, 50-node template, 200k-cell 3-D TI."""
+
+    def setup(self):
+        self.ti = facies_ti((20, 100, 100))
+        self.tpl = sl.Template.ellipsoid((2, 5, 5), max_nodes=50)
+
+    def time_build(self):
+        sl.PatternTree(self.ti, self.tpl, levels=3)
+
+    def peakmem_build(self):
+        sl.PatternTree(self.ti, self.tpl, levels=3)
+
+    def track_bytes_per_node(self):
+        tree = sl.PatternTree(self.ti, self.tpl, levels=3)
+        return tree.bytes_per_node
+
+    track_bytes_per_node.unit = "bytes"
+
+
+class TreeSimulate:
+    """One 3-D realization of 64k cells, 3 levels, 50-node template, 1 and 2 threads."""
+
+    params = [1, 2]
+    param_names = ["threads"]
+
+    def setup(self, threads):
+        self.tree = sl.PatternTree(facies_ti((20, 100, 100)), sl.Template.ellipsoid((2, 5, 5), max_nodes=50),
+                                   levels=3)
+
+    def time_simulate(self, threads):
+        self.tree.simulate((16, 64, 64), seed=1, threads=threads)
