@@ -243,3 +243,23 @@ def test_demo_study_is_valid_and_calibrates(tmp_path):
     assert prep.hard.report.outside_total > 0  # one deviated well leaves the model
     cal = prep.calibration.scores
     assert cal["accuracy"] > cal["baseline_accuracy"] and cal["brier"] < cal["baseline_brier"]
+
+
+def test_training_image_from_builder_spec(tmp_path, capsys):
+    from strataloom.demo import TI_SPEC
+    from strataloom.workflow import read_training_image
+
+    p = write_small_study(tmp_path)
+    (tmp_path / "ti.toml").write_text(
+        TI_SPEC.format(seed=3, nz=6, ny=40, nx=40, dz=1.0, dy=25.0, dx=25.0)
+    )
+    p.write_text(p.read_text().replace('file = "ti.npy"', 'builder = "ti.toml"\nseed = 9'))
+    s = load_study(p)
+    assert s.training_image.builder == (tmp_path / "ti.toml").resolve()
+    assert "ti.toml" in s.input_hashes()
+    # three facies built, but this study's facies table has two: one clear line
+    with pytest.raises(sl.StudyError, match=r"holds codes \[0, 1, 2\].*codes \[0, 1\]"):
+        read_training_image(s)
+    p.write_text(p.read_text().replace('builder = "ti.toml"', 'file = "ti.npy"'))
+    err = _cli_error(capsys, p)
+    assert "'training_image.seed' applies to a 'builder' spec only" in err

@@ -10,7 +10,7 @@ The schema (all keys are ours)::
     [grid]             shape = [nz, ny, nx], spacing, origin
     [variables.NAME]   kind = "categorical" | "continuous", units,
                        categories = [{code, name, colour}, ...]  (categorical; codes 0..K-1)
-    [training_image]   file = "ti.npy", variable
+    [training_image]   file = "ti.npy" or builder = "ti.toml" (+ seed), variable
     [[wells]]          file, name, collar = [x, y, z], survey, columns = {variable = column}
     [soft_data]        variable, probabilities = "p.npy"  or  attributes = [...], patch,
                        components, smoothing, regularization, segy = {axes, z_downward}
@@ -174,10 +174,17 @@ class Variable:
 
 @dataclass(frozen=True)
 class TrainingImageSpec:
-    """Where the training image comes from."""
+    """Where the training image comes from: a ``.npy`` file or a builder spec (TOML)."""
 
-    file: Path
+    file: Path | None
     variable: str
+    builder: Path | None = None
+    seed: int | None = None
+
+    @property
+    def source(self) -> Path:
+        """The file the training image is read or built from."""
+        return self.file if self.file is not None else self.builder  # type: ignore[return-value]
 
 
 @dataclass(frozen=True)
@@ -381,7 +388,7 @@ class Study:
 
     def input_files(self) -> list[Path]:
         """Every data file the study names, in a fixed order."""
-        files = [self.training_image.file]
+        files = [self.training_image.source]
         for w in self.wells:
             files.append(w.file)
             if w.survey is not None:
@@ -436,6 +443,8 @@ class Study:
             },
             "training_image": {
                 "file": rel(self.training_image.file),
+                "builder": rel(self.training_image.builder),
+                "seed": self.training_image.seed,
                 "variable": self.training_image.variable,
             },
             "wells": [
@@ -548,13 +557,32 @@ def load_study(path: str | Path) -> Study:
     variables = _variables(r, data["variables"])
     categorical = [k for k, v in variables.items() if v.kind == "categorical"]
 
-    t = r.table(data["training_image"], ("training_image",), {"file": True, "variable": False})
+    t = r.table(
+        data["training_image"],
+        ("training_image",),
+        {"file": False, "builder": False, "seed": False, "variable": False},
+    )
     ti_var = r.string(
         t.get("variable", (categorical or list(variables))[0]),
         ("training_image", "variable"),
         tuple(variables),
     )
-    ti = TrainingImageSpec(r.file(t["file"], ("training_image", "file"), folder, (".npy",)), ti_var)
+    if ("file" in t) == ("builder" in t):
+        raise r.error(
+            ("training_image",),
+            "needs exactly one of 'file' (a .npy array) or 'builder' (a training-image spec, "
+            ".toml).",
+        )
+    if "seed" in t and "builder" not in t:
+        raise r.error(("training_image", "seed"), "applies to a 'builder' spec only.")
+    ti = TrainingImageSpec(
+        r.file(t["file"], ("training_image", "file"), folder, (".npy",)) if "file" in t else None,
+        ti_var,
+        r.file(t["builder"], ("training_image", "builder"), folder, (".toml",))
+        if "builder" in t
+        else None,
+        r.integer(t["seed"], ("training_image", "seed"), 0, 2**63 - 1) if "seed" in t else None,
+    )
 
     wells_raw = data.get("wells", [])
     if not isinstance(wells_raw, list):

@@ -74,23 +74,30 @@ class Prepared:
 def read_training_image(study: Study) -> np.ndarray:
     """The training image, checked against the variable's facies table."""
     spec = study.training_image
-    ti = read_array(spec.file, "training image")
+    if spec.builder is not None:
+        from .training import build_training_image
+
+        if not spec.builder.is_file():
+            raise StudyError(f"The training-image spec '{spec.builder}' does not exist.")
+        ti = np.asarray(build_training_image(spec.builder, seed=spec.seed).facies)
+    else:
+        ti = read_array(spec.file, "training image")  # type: ignore[arg-type]
     var = study.variables[spec.variable]
     if ti.ndim not in (2, 3) or ti.size == 0:
         raise StudyError(
-            f"The training image '{spec.file.name}' must be a 2-D or 3-D array; got "
+            f"The training image '{spec.source.name}' must be a 2-D or 3-D array; got "
             f"shape {ti.shape}."
         )
     if var.kind == "categorical":
         if not np.issubdtype(ti.dtype, np.integer):
             raise StudyError(
-                f"The training image '{spec.file.name}' must hold integer facies codes "
+                f"The training image '{spec.source.name}' must hold integer facies codes "
                 f"for '{var.name}'; got dtype {ti.dtype}."
             )
         present = sorted(int(c) for c in np.unique(ti[ti >= 0]))
         if present != var.codes:
             raise StudyError(
-                f"The training image '{spec.file.name}' holds codes {present}, but the "
+                f"The training image '{spec.source.name}' holds codes {present}, but the "
                 f"facies table of '{var.name}' has codes {var.codes}; they must match."
             )
     elif not np.issubdtype(ti.dtype, np.floating):
@@ -367,7 +374,6 @@ def _summaries(study: Study, prep: Prepared, out_dir: Path) -> list[str]:
     return lines
 
 
-
 def check_study(
     study: Study,
     *,
@@ -400,12 +406,12 @@ def check_study(
         counts = np.bincount(ti[ti >= 0].ravel(), minlength=len(var.categories))
         props = ", ".join(f"{c.name} {counts[c.code] / counts.sum():.2f}" for c in var.categories)
         lines.append(
-            f"training image {study.relative(study.training_image.file)}: shape "
+            f"training image {study.relative(study.training_image.source)}: shape "
             f"{ti.shape}, proportions {props}"
         )
     else:
         lines.append(
-            f"training image {study.relative(study.training_image.file)}: shape "
+            f"training image {study.relative(study.training_image.source)}: shape "
             f"{ti.shape}, mean {np.nanmean(ti):.4g}"
         )
     dev = sum(w.deviated for w in prep.wells)

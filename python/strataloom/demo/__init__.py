@@ -17,11 +17,11 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["SIZES", "channel_belt", "run_demo", "write_demo"]
+__all__ = ["SIZES", "TI_SPEC", "channel_belt", "run_demo", "write_demo"]
 
 #: grid shape, realizations, training-image shape per demo size
 SIZES: dict[str, dict[str, Any]] = {
-    "default": {"shape": (16, 72, 72), "realizations": 20, "ti": (24, 120, 120)},
+    "default": {"shape": (16, 64, 64), "realizations": 12, "ti": (24, 120, 120)},
     "large": {"shape": (40, 160, 160), "realizations": 4, "ti": (40, 160, 160)},
 }
 SPACING = (1.0, 25.0, 25.0)  # dz, dy, dx in metres
@@ -33,40 +33,45 @@ FACIES = [
 ]
 
 
-def channel_belt(shape: tuple[int, int, int], seed: int, density: float = 1.0) -> np.ndarray:
-    """Invented channel sands (1) with levee silts (2) in floodplain mud (0).
+TI_SPEC = """\
+# Training-image builder spec for the demo (invented): meandering channel sands with levee silts
+# in floodplain mud, channels running east.
+seed = {seed}
+background = 0
+facies = ["floodplain mud", "channel sand", "levee silt"]
 
-    Channels run along x with a sinuous centreline in y; each has a lens-shaped cross-section
-    (thickest on its axis) and a thin levee fringe on both banks. ``density`` scales the number of
-    channels.
+[grid]
+shape = [{nz}, {ny}, {nx}]
+spacing = [{dz}, {dy}, {dx}]
+origin = [0.0, 0.0, 0.0]
+
+[[channels]]
+name = "channels"
+facies = 1
+proportion = 0.14
+width = {{ uniform = [100.0, 200.0] }}
+thickness = {{ triangular = [2.0, 3.0, 4.5] }}
+azimuth = {{ normal = [90.0, 10.0] }}
+wavelength = {{ uniform = [900.0, 1600.0] }}
+amplitude = {{ uniform = [80.0, 220.0] }}
+section = "rounded"
+levee = {{ facies = 2, width = {{ uniform = [40.0, 80.0] }}, thickness = 1.0 }}
+"""
+
+
+def channel_belt(shape: tuple[int, int, int], seed: int) -> np.ndarray:
+    """The demo's invented geology on a grid of ``shape`` (the builder spec's objects).
+
+    Built with :func:`strataloom.training.build_training_image` from :data:`TI_SPEC`.
     """
-    rng = np.random.default_rng(seed)
+    import tomllib
+
+    from ..training import build_training_image
+
     nz, ny, nx = shape
-    _, y, x = np.mgrid[0:1, 0:ny, 0:nx].astype(np.float64)
-    y, x = y[0], x[0]
-    out = np.zeros(shape, dtype=np.int16)
-    n = max(1, round(density * nz * ny / 90))
-    for _ in range(n):
-        width = rng.uniform(2.5, 5.0)
-        depth = rng.uniform(1.5, 3.0)
-        wave = rng.uniform(30, 70)
-        amp = rng.uniform(3, 10)
-        centre = (
-            rng.uniform(-5, ny + 5)
-            + amp * np.sin(2 * np.pi * x / wave + rng.uniform(0, 6))
-            + 0.4 * amp * np.sin(2 * np.pi * x / (wave / 2.7) + rng.uniform(0, 6))
-        )
-        top = rng.uniform(0, nz + 1)
-        dist = np.abs(y - centre) / width  # 0 on the axis, 1 at the bank
-        thick = depth * np.sqrt(np.clip(1 - dist**2, 0, None))
-        for iz in range(nz):
-            below = top - (iz + 0.5)  # depth of this layer's centre under the channel top
-            sand = (below >= 0) & (below < thick)
-            levee = (dist >= 1) & (dist < 1.6) & (below >= 0) & (below < 0.8)
-            layer = out[iz]
-            layer[levee & (layer == 0)] = 2
-            layer[sand] = 1
-    return out
+    dz, dy, dx = SPACING
+    spec = tomllib.loads(TI_SPEC.format(seed=seed, nz=nz, ny=ny, nx=nx, dz=dz, dy=dy, dx=dx))
+    return np.asarray(build_training_image(spec).facies, dtype=np.int16)
 
 
 def _survey_text(stations: list[tuple[float, float, float]]) -> str:
@@ -88,7 +93,12 @@ def write_demo(folder: str | Path, size: str = "default", seed: int = 7) -> Path
     root = Path(folder)
     (root / "wells").mkdir(parents=True, exist_ok=True)
     rng = np.random.default_rng(seed)
-    np.save(root / "channels_ti.npy", channel_belt(cfg["ti"], seed=seed + 1))
+    tz, ty, tx = cfg["ti"]
+    (root / "channels_ti.toml").write_text(
+        TI_SPEC.format(
+            seed=seed + 1, nz=tz, ny=ty, nx=tx, dz=SPACING[0], dy=SPACING[1], dx=SPACING[2]
+        )
+    )
     truth = channel_belt(cfg["shape"], seed=seed + 2)
     dz, dy, dx = SPACING
     z0, y0, x0 = ORIGIN
@@ -210,7 +220,7 @@ categories = [
 {cats}]
 
 [training_image]
-file = "channels_ti.npy"
+builder = "channels_ti.toml"   # a training-image builder spec (strataloom ti build)
 
 {wells_toml}[soft_data]
 attributes = ["resistivity.npy"]
