@@ -15,7 +15,10 @@ namespace {
 
 constexpr std::int64_t kMiB = 1 << 20;
 
-std::string mib(std::int64_t bytes) { return std::to_string((bytes + kMiB - 1) / kMiB) + " MiB"; }
+std::string mib(std::int64_t bytes) {
+  if (bytes < kMiB) return std::to_string((bytes + 1023) / 1024) + " KiB";
+  return std::to_string((bytes + kMiB - 1) / kMiB) + " MiB";
+}
 
 }  // namespace
 
@@ -65,8 +68,9 @@ PatternTree::PatternTree(CategoricalImage ti, const Template& tpl, int levels, s
   require(!centres_.empty(), "training_image", "is entirely masked; at least one cell must hold a code >= 0.");
   require(centres_.size() < (std::size_t{1} << 32) - 1, "training_image", "has more than 2**32 - 2 informed cells.");
   std::int64_t used = static_cast<std::int64_t>(padded_.size() + centres_.size() * sizeof(std::int64_t));
-  require(used <= memory_limit, "memory_limit",
-          "of " + mib(memory_limit) + " is below the " + mib(used) + " the training image alone needs.");
+  if (used > memory_limit)
+    throw MemoryLimitError("The memory_limit of " + mib(memory_limit) + " is below the " + mib(used) +
+                           " the training image alone needs; raise memory_limit or use a smaller training image.");
   for (int level = 0; level < levels; ++level) build_level(level, memory_limit, used);
 }
 
