@@ -15,7 +15,10 @@ namespace {
 
 constexpr std::int64_t kMiB = 1 << 20;
 
-std::string mib(std::int64_t bytes) { return std::to_string((bytes + kMiB - 1) / kMiB) + " MiB"; }
+std::string mib(std::int64_t bytes) {
+  if (bytes < kMiB) return std::to_string((bytes + 1023) / 1024) + " KiB";
+  return std::to_string((bytes + kMiB - 1) / kMiB) + " MiB";
+}
 
 }  // namespace
 
@@ -65,8 +68,9 @@ PatternTree::PatternTree(CategoricalImage ti, const Template& tpl, int levels, s
   require(!centres_.empty(), "training_image", "is entirely masked; at least one cell must hold a code >= 0.");
   require(centres_.size() < (std::size_t{1} << 32) - 1, "training_image", "has more than 2**32 - 2 informed cells.");
   std::int64_t used = static_cast<std::int64_t>(padded_.size() + centres_.size() * sizeof(std::int64_t));
-  require(used <= memory_limit, "memory_limit",
-          "of " + mib(memory_limit) + " is below the " + mib(used) + " the training image alone needs.");
+  if (used > memory_limit)
+    throw MemoryLimitError("The memory_limit of " + mib(memory_limit) + " is below the " + mib(used) +
+                           " the training image alone needs; raise memory_limit or use a smaller training image.");
   for (int level = 0; level < levels; ++level) build_level(level, memory_limit, used);
 }
 
@@ -154,20 +158,21 @@ void PatternTree::build_level(int level, std::int64_t memory_limit, std::int64_t
   L.sorted.resize(N);
   for (std::size_t p = 0; p < N; ++p) L.sorted[p] = centres_[order[p]];
   // Bit planes in pattern order (see Level).
-  L.stride = D * K + K;
   const std::size_t words = (N + 63) / 64;
-  const std::int64_t plane_bytes = static_cast<std::int64_t>(words * L.stride * sizeof(std::uint64_t));
+  L.words = words;
+  const std::size_t planes = D * K + K;
+  const std::int64_t plane_bytes = static_cast<std::int64_t>(words * planes * sizeof(std::uint64_t));
   check(total + static_cast<std::size_t>(plane_bytes / bytes_per_node));
-  L.planes.assign(words * L.stride, 0);
+  L.planes.assign(words * planes, 0);
   for (std::size_t p = 0; p < N; ++p) {
     const std::int64_t c = L.sorted[p];
-    std::uint64_t* w = L.planes.data() + (p / 64) * L.stride;
+    const std::size_t w = p / 64;
     const std::uint64_t bit = std::uint64_t{1} << (p % 64);
     for (std::size_t i = 0; i < D; ++i) {
       const std::uint8_t v = padded[c + L.delta[i]];
-      if (v != CategoricalImage::kMasked) w[i * K + v] |= bit;
+      if (v != CategoricalImage::kMasked) L.planes[(i * K + v) * words + w] |= bit;
     }
-    w[D * K + padded[c]] |= bit;
+    L.planes[(D * K + padded[c]) * words + w] |= bit;
   }
   used += plane_bytes;
   L.first_centre.shrink_to_fit();
@@ -224,13 +229,13 @@ EventAnswer PatternTree::query(int level, const std::int32_t* index, const std::
   // Walking on costs about frontier * remaining depth; checking the frontier's centres on the TI
   // costs about a few operations per centre (the replicates so far).
   auto walking_is_dearer = [&]() {
-    return sc.frontier.size() * (last + 1 - depth) > static_cast<std::size_t>(ans.replicates) / 16 + 64;
+    return sc.frontier.size() * (last + 1 - depth) > static_cast<std::size_t>(ans.replicates) / 8 + 64;
   };
   for (int k = 0; k < m; ++k) {
     const std::size_t t = static_cast<std::size_t>(index[k]);
     // Marginalise the template nodes before the next informed one: follow every branch.
     while (depth < t) {
-      if (walking_is_dearer()) return check_centres(L, index, value, m, k, min_replicates, depth, ans, sc);
+      if (walking_is_dearer()) return check_centres(L, index, value, m, k, min_replicates, stop_when_pure, depth, ans, sc);
       sc.next.clear();
       for (std::uint32_t j : sc.frontier)
         for (std::uint32_t c = fc[j]; c < fc[j + 1]; ++c) sc.next.push_back(c);
@@ -238,7 +243,7 @@ EventAnswer PatternTree::query(int level, const std::int32_t* index, const std::
       sc.frontier.swap(sc.next);
       ++depth;
     }
-    if (walking_is_dearer()) return check_centres(L, index, value, m, k, min_replicates, depth, ans, sc);
+    if (walking_is_dearer()) return check_centres(L, index, value, m, k, min_replicates, stop_when_pure, depth, ans, sc);
     // The informed node: keep the child holding its value (children come in symbol order).
     sc.next.clear();
     std::fill(sc.counts.begin(), sc.counts.end(), 0);
@@ -272,19 +277,18 @@ EventAnswer PatternTree::query(int level, const std::int32_t* index, const std::
 }
 
 EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index, const std::uint8_t* value, int m,
-                                       int k, std::int64_t min_replicates, std::size_t depth, EventAnswer ans,
-                                       QueryScratch& sc) const {
+                                       int k, std::int64_t min_replicates, bool stop_when_pure, std::size_t depth,
+                                       EventAnswer ans, QueryScratch& sc) const {
   const std::size_t K = static_cast<std::size_t>(ti_.categories);
-  const std::size_t M = static_cast<std::size_t>(m);
-  const std::size_t first = static_cast<std::size_t>(k);
   const std::uint32_t N = static_cast<std::uint32_t>(centres_.size());
-  sc.prefix_hist.assign((M + 1) * K, 0);
   const std::uint32_t depth_end = L.depth_start[depth + 1];
-  // For every centre of the frontier, how many of the informed nodes first.. it matches in order,
-  // 64 centres at a time: `alive` holds the centres still matching, `lost` those that stop here.
-  const std::size_t stride = L.stride;
-  const std::size_t cat_base = L.delta.size() * K;
+  const std::size_t words = L.words;
   const std::uint64_t* planes = L.planes.data();
+  const std::uint64_t* category = planes + L.delta.size() * K * words;
+  ans.scanned = true;
+  // The frontier's centres as (word, bits) pairs; neighbouring ranges may share a word.
+  sc.word_index.clear();
+  sc.word_alive.clear();
   for (std::uint32_t j : sc.frontier) {
     const std::uint32_t b = L.first_centre[j];
     const std::uint32_t e = j + 1 < depth_end ? L.first_centre[j + 1] : N;
@@ -292,33 +296,45 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
     ans.visited += e - b;
     for (std::uint32_t w = b / 64; w <= (e - 1) / 64; ++w) {
       const std::uint32_t lo = std::max(b, w * 64) - w * 64, hi = std::min<std::uint32_t>(e, w * 64 + 64) - w * 64;
-      std::uint64_t alive = (hi == 64 ? ~std::uint64_t{0} : ((std::uint64_t{1} << hi) - 1)) & (~std::uint64_t{0} << lo);
-      const std::uint64_t* word = planes + static_cast<std::size_t>(w) * stride;
-      std::size_t n = first;
-      for (; n < M && alive; ++n) {
-        const std::uint64_t keep = alive & word[static_cast<std::size_t>(index[n]) * K + value[n]];
-        const std::uint64_t lost = alive & ~keep;
-        if (lost)
-          for (std::size_t q = 0; q < K; ++q) sc.prefix_hist[n * K + q] += std::popcount(lost & word[cat_base + q]);
-        alive = keep;
+      const std::uint64_t bits = (hi == 64 ? ~std::uint64_t{0} : ((std::uint64_t{1} << hi) - 1)) & (~std::uint64_t{0} << lo);
+      if (!sc.word_index.empty() && sc.word_index.back() == w) {
+        sc.word_alive.back() |= bits;
+      } else {
+        sc.word_index.push_back(w);
+        sc.word_alive.push_back(bits);
       }
-      if (alive)
-        for (std::size_t q = 0; q < K; ++q) sc.prefix_hist[M * K + q] += std::popcount(alive & word[cat_base + q]);
     }
   }
-  // Replicates of the first n nodes: the centres that match at least n of them.
-  ans.scanned = true;
-  sc.counts.assign(K, 0);
-  for (std::size_t n = M; n > first; --n) {
-    for (std::size_t q = 0; q < K; ++q) sc.counts[q] += sc.prefix_hist[n * K + q];
-    std::int64_t total = 0;
-    for (std::size_t q = 0; q < K; ++q) total += sc.counts[q];
-    if (total >= min_replicates && total > 0) {
-      sc.best = sc.counts;
-      ans.replicates = total;
-      ans.kept = static_cast<int>(n);
-      break;
+  // Add the informed nodes one at a time, keeping only words with centres still matching; stop
+  // when too few replicates remain (node dropping) or, in simulation, when one category holds all.
+  sc.counts.resize(K);
+  for (std::size_t n = static_cast<std::size_t>(k); n < static_cast<std::size_t>(m); ++n) {
+    const std::uint64_t* plane = planes + (static_cast<std::size_t>(index[n]) * K + value[n]) * words;
+    std::fill(sc.counts.begin(), sc.counts.end(), 0);
+    std::size_t out = 0;
+    for (std::size_t i = 0; i < sc.word_index.size(); ++i) {
+      const std::uint32_t w = sc.word_index[i];
+      const std::uint64_t a = sc.word_alive[i] & plane[w];
+      if (!a) continue;
+      sc.word_index[out] = w;
+      sc.word_alive[out] = a;
+      ++out;
+      for (std::size_t q = 0; q < K; ++q) sc.counts[q] += std::popcount(a & category[q * words + w]);
     }
+    sc.word_index.resize(out);
+    sc.word_alive.resize(out);
+    ans.visited += static_cast<std::int64_t>(out) * 64;
+    std::int64_t total = 0;
+    int nonzero = 0;
+    for (std::size_t q = 0; q < K; ++q) {
+      total += sc.counts[q];
+      nonzero += sc.counts[q] > 0;
+    }
+    if (total < min_replicates || total == 0) break;
+    sc.best = sc.counts;
+    ans.replicates = total;
+    ans.kept = static_cast<int>(n + 1);
+    if (stop_when_pure && nonzero <= 1) break;
   }
   return ans;
 }
@@ -330,7 +346,7 @@ EventAnswer PatternTree::scan(int level, const std::int32_t* index, const std::u
   sc.best.assign(root_counts_.begin(), root_counts_.end());
   ans.replicates = static_cast<std::int64_t>(centres_.size());
   sc.frontier.assign(1, 0);
-  return check_centres(L, index, value, m, 0, min_replicates, 0, ans, sc);
+  return check_centres(L, index, value, m, 0, min_replicates, false, 0, ans, sc);
 }
 
 }  // namespace sl

@@ -52,7 +52,8 @@ struct EventAnswer {
 struct QueryScratch {
   std::vector<std::uint32_t> frontier, next;
   std::vector<std::int64_t> counts, best;            // K each
-  std::vector<std::int64_t> prefix_hist;             // (m + 1) * K, for the scan
+  std::vector<std::uint32_t> word_index;             // candidate words of the bit planes
+  std::vector<std::uint64_t> word_alive;             // their centres still matching
 };
 
 class PatternTree {
@@ -94,16 +95,17 @@ class PatternTree {
     std::vector<std::uint32_t> depth_start;   // first node of each depth 0..D, then the node count
     std::vector<std::int64_t> sorted;         // padded index of each centre, in pattern order
     std::vector<std::int64_t> delta;          // padded flat offset of each template node
-    // Bit planes over `sorted`, one 64-bit word per 64 centres: for word w, the D * K words of
-    // "template node i holds code v" (at i * K + v), then K words of "the centre holds code q".
+    // Bit planes over `sorted`, one bit per centre, `words` 64-bit words per plane: plane i * K + v
+    // is "template node i holds code v", plane D * K + q is "the centre holds code q".
     std::vector<std::uint64_t> planes;
-    std::size_t stride = 0;  // words per 64 centres: D * K + K
+    std::size_t words = 0;
   };
   void build_level(int level, std::int64_t memory_limit, std::int64_t& used);
   // Finishes a query by checking informed nodes k.. on the TI for the centres of `frontier`
   // (nodes at one depth); `ans` and scratch.best hold the answer for the first k nodes.
   EventAnswer check_centres(const Level& L, const std::int32_t* index, const std::uint8_t* value, int m, int k,
-                            std::int64_t min_replicates, std::size_t depth, EventAnswer ans, QueryScratch& sc) const;
+                            std::int64_t min_replicates, bool stop_when_pure, std::size_t depth, EventAnswer ans,
+                            QueryScratch& sc) const;
 
   CategoricalImage ti_;
   Template template_;

@@ -1,0 +1,113 @@
+// Unit tests of the pattern tree: tree walk against the centre-by-centre check, node dropping,
+// simulation invariants (hard data, determinism across thread counts), cancellation.
+#include <algorithm>
+#include <random>
+
+#include "core/error.hpp"
+#include "merge/tau.hpp"
+#include "tests/check.hpp"
+#include "tree/pattern_tree.hpp"
+#include "tree/tree_sim.hpp"
+
+using namespace sl;
+
+namespace {
+
+CategoricalImage random_image(const Ijk& shape, int K, unsigned seed, double masked = 0.1) {
+  CategoricalImage ti;
+  ti.shape = shape;
+  ti.categories = K;
+  std::mt19937 gen(seed);
+  std::uniform_int_distribution<int> code(0, K - 1);
+  std::uniform_real_distribution<double> u(0, 1);
+  ti.codes.resize(static_cast<std::size_t>(shape[0] * shape[1] * shape[2]));
+  for (auto& c : ti.codes) c = u(gen) < masked ? CategoricalImage::kMasked : static_cast<std::uint8_t>(code(gen));
+  ti.codes[0] = 0;
+  return ti;
+}
+
+}  // namespace
+
+SL_TEST(tree_walk_matches_centre_check) {
+  const auto ti = random_image({4, 12, 12}, 3, 1);
+  const PatternTree tree(ti, Template::box({1, 1, 1}), 2, std::int64_t{1} << 30);
+  std::mt19937 gen(2);
+  QueryScratch a, b;
+  for (int trial = 0; trial < 300; ++trial) {
+    const int level = static_cast<int>(gen() % 2);
+    std::vector<std::int32_t> index;
+    for (std::int32_t i = 0; i < 26; ++i)
+      if (gen() % 3 == 0) index.push_back(i);
+    std::vector<std::uint8_t> value(index.size());
+    for (auto& v : value) v = static_cast<std::uint8_t>(gen() % 3);
+    const auto m = static_cast<int>(index.size());
+    const std::int64_t min_rep = 1 + static_cast<std::int64_t>(gen() % 3);
+    const auto x = tree.query(level, index.data(), value.data(), m, min_rep, false, a);
+    const auto y = tree.scan(level, index.data(), value.data(), m, min_rep, b);
+    SL_CHECK(x.replicates == y.replicates && x.kept == y.kept && a.best == b.best);
+  }
+}
+
+SL_TEST(tree_counts_the_border_as_the_contract_says) {
+  CategoricalImage ti;
+  ti.shape = {1, 1, 3};
+  ti.categories = 2;
+  ti.codes = {0, 1, 0};
+  const PatternTree tree(ti, Template({{0, 0, 1}}), 1, std::int64_t{1} << 30);
+  QueryScratch sc;
+  const std::int32_t index[1] = {0};
+  const std::uint8_t value[1] = {1};
+  const auto a = tree.query(0, index, value, 1, 1, false, sc);
+  SL_CHECK(a.replicates == 1 && a.kept == 1 && sc.best[0] == 1 && sc.best[1] == 0);
+}
+
+SL_TEST(tree_rejects_unusable_input) {
+  CategoricalImage masked;
+  masked.shape = {1, 2, 2};
+  masked.categories = 1;
+  masked.codes.assign(4, CategoricalImage::kMasked);
+  SL_CHECK_THROWS(PatternTree(masked, Template({{0, 0, 1}}), 1, 1 << 20), ParameterError);
+  SL_CHECK_THROWS(PatternTree(random_image({1, 4, 4}, 2, 3), Template::box({0, 4, 4}), 1, 1 << 20), ParameterError);
+  SL_CHECK_THROWS(PatternTree(random_image({1, 40, 40}, 3, 3), Template::box({0, 2, 2}), 1, 5000), MemoryLimitError);
+}
+
+SL_TEST(simulation_honours_hard_data_and_is_thread_independent) {
+  const PatternTree tree(random_image({6, 20, 20}, 3, 4, 0.0), Template::ellipsoid({1, 2, 2}, 20), 2,
+                         std::int64_t{1} << 30);
+  const Grid grid({5, 17, 19});
+  std::vector<std::int16_t> hard(static_cast<std::size_t>(grid.size()), -1);
+  for (std::size_t i = 0; i < hard.size(); i += 37) hard[i] = static_cast<std::int16_t>(i % 3);
+  TreeSimOptions opt;
+  opt.seed = 9;
+  opt.tau = {1.0};
+  opt.threads = 1;
+  const auto one = simulate_tree(tree, grid, hard, opt, Poll{}, nullptr);
+  opt.threads = 3;
+  const auto three = simulate_tree(tree, grid, hard, opt, Poll{}, nullptr);
+  SL_CHECK(one == three);
+  for (std::size_t i = 0; i < hard.size(); ++i) {
+    SL_CHECK(one[i] >= 0 && one[i] < 3);
+    if (hard[i] >= 0) SL_CHECK(one[i] == hard[i]);
+  }
+}
+
+SL_TEST(simulation_stops_when_asked) {
+  const PatternTree tree(random_image({4, 16, 16}, 2, 5, 0.0), Template::box({1, 1, 1}), 1, std::int64_t{1} << 30);
+  TreeSimOptions opt;
+  opt.tau = {1.0};
+  opt.threads = 2;
+  SL_CHECK_THROWS(simulate_tree(tree, Grid({30, 60, 60}), {}, opt, [](std::int64_t, std::int64_t) { return false; },
+                                nullptr),
+                  Cancelled);
+}
+
+SL_TEST(tau_merge_worked_values) {
+  // Journel 2002: prior 0.5, sources 0.5 and 0.8 -> 0.8; a certain source decides.
+  const double prior[2] = {0.5, 0.5}, src[4] = {0.5, 0.5, 0.8, 0.2}, tau[2] = {1, 1};
+  double out[2];
+  tau_merge(prior, src, tau, 2, 2, out);
+  SL_CHECK(std::abs(out[0] - 0.8) < 1e-12);
+  const double certain[4] = {1.0, 0.0, 0.3, 0.7};
+  tau_merge(prior, certain, tau, 2, 2, out);
+  SL_CHECK(out[0] == 1.0 && out[1] == 0.0);
+}
