@@ -6,6 +6,7 @@ from importlib.metadata import PackageNotFoundError
 from importlib.metadata import version as _version
 
 from . import training
+from .ensemble import realization_seeds, run_ensemble
 from .errors import MemoryLimitError, ParameterError, ParameterTypeError, StudyError
 from .export import export_run
 from .grid import Grid
@@ -13,6 +14,8 @@ from .paths import conflict_free_batches, random_path, uniform_draws
 from .qc import check_run
 from .report import build_report
 from .runread import Run, open_run
+from .store import RealizationStore
+from .study import Study, load_study
 from .summary import open_summary, summarize
 from .tau import tau_merge
 from .template import Template
@@ -27,6 +30,7 @@ from .training import (
     rank_training_images,
 )
 from .tree import PatternTree
+from .workflow import check_study, prepare, run_study
 
 try:
     __version__ = _version("strataloom")
@@ -43,7 +47,9 @@ __all__ = [
     "ParameterTypeError",
     "PatternTree",
     "PropertyModel",
+    "RealizationStore",
     "Run",
+    "Study",
     "StudyError",
     "Template",
     "TrainingImage",
@@ -51,13 +57,19 @@ __all__ = [
     "build_report",
     "build_training_image",
     "check_run",
+    "check_study",
     "conflict_free_batches",
     "export_run",
     "gaussian_field",
+    "load_study",
     "open_run",
     "open_summary",
+    "prepare",
     "random_path",
     "rank_training_images",
+    "realization_seeds",
+    "run_ensemble",
+    "run_study",
     "summarize",
     "tau_merge",
     "training",
