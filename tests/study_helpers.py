@@ -106,3 +106,27 @@ def write_small_study(folder: Path, *, shape=(4, 16, 16), n=4, soft=False, produ
         )
     )
     return path
+
+
+class FailingFactory:
+    """Wraps an engine factory; its engine raises for one seed (a test double for failures)."""
+
+    def __init__(self, inner, bad_seed):
+        self.inner = inner
+        self.bad_seed = bad_seed
+        self.token = "failing-" + inner.token
+
+    def __call__(self):
+        return _FailingAdapter(self.inner(), self.bad_seed)
+
+
+class _FailingAdapter:
+    def __init__(self, adapter, bad_seed):
+        self.adapter = adapter
+        self.bad_seed = bad_seed
+        self.variables = adapter.variables
+
+    def simulate(self, seed):
+        if seed == self.bad_seed:
+            raise RuntimeError(f"engine failure for seed {seed}")
+        return self.adapter.simulate(seed)

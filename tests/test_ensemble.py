@@ -286,3 +286,23 @@ def test_cli_run_on_a_dask_scheduler_address(tmp_path):
     assert out.returncode == 0, out.stderr
     assert "Dask cluster" in out.stdout
     assert _tree_bytes(tmp_path / "local") == _tree_bytes(tmp_path / "dask")
+
+
+def test_engine_failure_stops_the_pool_and_keeps_done_flags_true(tmp_path):
+    from strataloom.workflow import _store_attrs
+    from study_helpers import FailingFactory
+
+    p = write_small_study(tmp_path / "s", n=6)
+    study = load_study(p)
+    prep = prepare(study)
+    seeds = realization_seeds(42, 6)
+    store = RealizationStore.create(tmp_path / "r.zarr", attrs=_store_attrs(prep, seeds))
+    bad = FailingFactory(prep.factory(threads=1), bad_seed=seeds[3])
+    with pytest.raises(RuntimeError, match="engine failure"):
+        run_ensemble(bad, store, seeds, processes=2, progress=False)
+    done = store.done()
+    assert not done[3]
+    for i in np.flatnonzero(done):  # whatever was flagged done is complete
+        assert (store.read("facies", int(i)) >= 0).all()
+    res = run_ensemble(prep.factory(threads=1), store, seeds, processes=1, progress=False)
+    assert 3 in res.computed and store.done().all()

@@ -289,15 +289,24 @@ def _run_local(
                 pending.add(pool.submit(_worker_task, index, int(seeds[index])))
                 if len(pending) >= 2 * p:
                     break
-            while pending:
-                finished, pending = wait(pending, timeout=0.25, return_when=FIRST_COMPLETED)
-                if queue is not None:
-                    _drain(queue, bars)
-                for fut in sorted(finished, key=lambda f: f.result()[0]):
-                    yield fut.result()
-                    nxt = next(it, None)
-                    if nxt is not None:
-                        pending.add(pool.submit(_worker_task, nxt, int(seeds[nxt])))
+            try:
+                while pending:
+                    finished, pending = wait(pending, timeout=0.25, return_when=FIRST_COMPLETED)
+                    if queue is not None:
+                        _drain(queue, bars)
+                    for fut in sorted(finished, key=lambda f: f.result()[0]):
+                        yield fut.result()
+                        nxt = next(it, None)
+                        if nxt is not None:
+                            pending.add(pool.submit(_worker_task, nxt, int(seeds[nxt])))
+            except BaseException:
+                # Ctrl-C, a failed write or a failed realization: stop the workers now instead of
+                # letting the pool finish the realizations in flight (they are not marked done)
+                procs = list((getattr(pool, "_processes", None) or {}).values())
+                pool.shutdown(wait=False, cancel_futures=True)
+                for proc in procs:
+                    proc.terminate()
+                raise
     finally:
         if manager is not None:
             manager.shutdown()

@@ -21,8 +21,8 @@ __all__ = ["SIZES", "TI_SPEC", "channel_belt", "run_demo", "write_demo"]
 
 #: grid shape, realizations, training-image shape per demo size
 SIZES: dict[str, dict[str, Any]] = {
-    "default": {"shape": (16, 64, 64), "realizations": 12, "ti": (24, 120, 120)},
-    "large": {"shape": (40, 160, 160), "realizations": 4, "ti": (40, 160, 160)},
+    "default": {"shape": (16, 64, 64), "realizations": 20, "ti": (24, 120, 120)},
+    "large": {"shape": (40, 160, 160), "realizations": 8, "ti": (40, 160, 160)},
 }
 SPACING = (1.0, 25.0, 25.0)  # dz, dy, dx in metres
 ORIGIN = (60.0, 0.0, 0.0)  # base of the model at 60 m elevation
