@@ -1,0 +1,465 @@
+#include "direct/direct_sampler.hpp"
+
+#include <algorithm>
+#include <chrono>
+#include <cmath>
+#include <limits>
+#include <string>
+
+#include "core/error.hpp"
+#include "core/path.hpp"
+#include "core/random.hpp"
+
+// Kernels are compiled for several instruction sets and picked at load time (GCC/Clang function
+// multi-versioning on x86-64 ELF); elsewhere they are plain C++ that the compiler vectorises.
+#if defined(__x86_64__) && defined(__ELF__) && (defined(__GNUC__) || defined(__clang__)) && !defined(STRATALOOM_NO_CLONES)
+#define SL_KERNEL __attribute__((target_clones("default", "arch=haswell", "arch=skylake-avx512")))
+#else
+#define SL_KERNEL
+#endif
+
+namespace sl::direct {
+
+namespace {
+
+// Lags evaluated between two checks of the early exit.
+constexpr int kChunk = 8;
+// Extra floats after the padded arrays, so a block that starts at the last real cell stays inside.
+constexpr std::int64_t kTail = 2 * kLanes;
+
+std::string str(std::int64_t v) { return std::to_string(v); }
+
+}  // namespace
+
+TrainingImage::TrainingImage(const Ijk& shape, const std::vector<const float*>& values, const std::vector<Kind>& kinds,
+                             const Offset& reach)
+    : shape_(shape), reach_(reach), kinds_(kinds) {
+  require(!values.empty() && values.size() == kinds.size(), "training_image",
+          "must hold one kind per variable and at least one variable.");
+  require(static_cast<int>(values.size()) <= kMaxVariables, "training_image",
+          "must hold at most " + str(kMaxVariables) + " variables.");
+  double cells = 1, padded = 1;
+  for (int a = 0; a < 3; ++a) {
+    require(shape[a] >= 1, "training_image", "must have a positive size along every axis.");
+    require(reach[a] >= 0 && reach[a] <= 4096, "search_radius", "must hold radii in [0, 4096] cells.");
+    padded_[a] = shape[a] + 2 * Index{reach[a]};
+    cells *= static_cast<double>(shape[a]);
+    padded *= static_cast<double>(padded_[a]);
+  }
+  require(padded <= 4e9, "training_image", "is too large once padded by the search radius (over 4e9 cells).");
+  const auto total = static_cast<std::size_t>(padded_[0] * padded_[1] * padded_[2] + kTail);
+  informed_.assign(total, 0);
+  values_.resize(values.size());
+  const Index n = size();
+  for (std::size_t v = 0; v < values.size(); ++v) {
+    require(values[v] != nullptr, "training_image", "is missing the data of a variable.");
+    const bool cat = kinds[v] == Kind::categorical;
+    auto& out = values_[v];
+    out.assign(total, cat ? kMaskedCategory : kMaskedContinuous);
+    const float* in = values[v];
+    for (Index i = 0; i < n; ++i) {
+      const float x = in[i];
+      const bool ok = cat ? (x >= 0.0f) : !std::isnan(x);  // NaN >= 0 is false
+      if (!ok) continue;
+      require(std::isfinite(x), "training_image", "must hold finite values or NaN (masked).");
+      const auto p = static_cast<std::size_t>(padded_index(i));
+      out[p] = x;
+      informed_[p] |= std::uint32_t{1} << v;
+    }
+  }
+}
+
+std::int64_t TrainingImage::padded_index(Index i) const noexcept {
+  const Index x = i % shape_[2];
+  const Index r = i / shape_[2];
+  return padded_row(r) + x;
+}
+
+Index TrainingImage::count_informed(std::uint32_t need) const noexcept {
+  Index count = 0;
+  for (Index i = 0; i < size(); ++i)
+    if ((informed_[static_cast<std::size_t>(padded_index(i))] & need) == need) ++count;
+  return count;
+}
+
+namespace detail {
+
+SL_KERNEL void accumulate_continuous(const float* ti, std::int64_t p, const LagSet& lags, int k0, int k1, float* acc) {
+  float a[kLanes];
+  for (int j = 0; j < kLanes; ++j) a[j] = acc[j];
+  const std::int64_t* delta = lags.delta.data();
+  const float* value = lags.value.data();
+  const float* weight = lags.weight.data();
+  for (int k = k0; k < k1; ++k) {
+    const float* t = ti + p + delta[k];
+    const float v = value[k];
+    const float w = weight[k];
+    for (int j = 0; j < kLanes; ++j) {
+      const float d = t[j] - v;
+      float s = d * d;
+      s = s < 1.0f ? s : 1.0f;
+      a[j] += w * s;
+    }
+  }
+  for (int j = 0; j < kLanes; ++j) acc[j] = a[j];
+}
+
+SL_KERNEL void accumulate_categorical(const float* ti, std::int64_t p, const LagSet& lags, int k0, int k1, float* acc) {
+  float a[kLanes];
+  for (int j = 0; j < kLanes; ++j) a[j] = acc[j];
+  const std::int64_t* delta = lags.delta.data();
+  const float* value = lags.value.data();
+  const float* weight = lags.weight.data();
+  for (int k = k0; k < k1; ++k) {
+    const float* t = ti + p + delta[k];
+    const float v = value[k];
+    const float w = weight[k];
+    for (int j = 0; j < kLanes; ++j) a[j] += t[j] != v ? w : 0.0f;
+  }
+  for (int j = 0; j < kLanes; ++j) acc[j] = a[j];
+}
+
+Index scan_start(std::uint64_t seed, Index cell, Index n) noexcept {
+  const double u = to_unit(random_bits(seed, 0, static_cast<std::uint64_t>(cell), Stream::start));
+  const auto s = static_cast<Index>(u * static_cast<double>(n));
+  return std::min(s, n - 1);
+}
+
+}  // namespace detail
+
+namespace {
+
+// Per-worker scratch and counters, on their own cache lines.
+struct alignas(64) Worker {
+  std::vector<detail::LagSet> lags;
+  std::vector<int> active;
+  std::vector<float> share;
+  Stats stats;
+};
+
+// One search-window offset seen from the grid and from the TI.
+struct Look {
+  Offset lag;
+  std::int64_t grid_delta;
+  std::int64_t ti_delta;
+  float weight;
+};
+
+class Simulation {
+ public:
+  Simulation(const TrainingImage& ti, const Grid& grid, const std::vector<float*>& state,
+             const std::vector<bool>& auxiliary, const Params& params, std::int64_t* source)
+      : ti_(ti), grid_(grid), state_(state), auxiliary_(auxiliary), params_(params), source_(source) {
+    nvar_ = ti.variables();
+    looks_.reserve(params.search.size());
+    for (const Offset& o : params.search) {
+      const double h = std::sqrt(double(o[0]) * o[0] + double(o[1]) * o[1] + double(o[2]) * o[2]);
+      const auto w = static_cast<float>(std::pow(1.0 + h, -params.lag_power));
+      looks_.push_back({o, (std::int64_t{o[0]} * grid.shape()[1] + o[1]) * grid.shape()[2] + o[2], ti.padded_delta(o), w});
+    }
+    const Index n = ti.size();
+    limit_ = std::clamp<Index>(static_cast<Index>(std::ceil(params.scan_fraction * static_cast<double>(n))), 1, n);
+    accept_ = static_cast<float>(params.accept_distance);
+  }
+
+  Worker make_worker() const {
+    Worker w;
+    w.lags.resize(static_cast<std::size_t>(nvar_));
+    for (auto& l : w.lags) {
+      const auto cap = static_cast<std::size_t>(params_.neighbors) + 1;
+      l.delta.resize(cap);
+      l.value.resize(cap);
+      l.weight.resize(cap);
+    }
+    w.active.reserve(static_cast<std::size_t>(nvar_));
+    w.share.resize(static_cast<std::size_t>(nvar_));
+    return w;
+  }
+
+  // Mask of the variables a node must receive (non-auxiliary and unknown).
+  std::uint32_t need_at(Index c) const noexcept {
+    std::uint32_t need = 0;
+    for (int v = 0; v < nvar_; ++v)
+      if (!auxiliary_[static_cast<std::size_t>(v)] && std::isnan(state_[static_cast<std::size_t>(v)][c]))
+        need |= std::uint32_t{1} << v;
+    return need;
+  }
+
+  void node(Index c, Worker& w) const {
+    const std::uint32_t need = need_at(c);
+    if (!need) return;
+    gather(c, w);
+    Index src = -1;
+    float dist = 0;
+    const bool accepted = scan(c, need, w, src, dist);
+    if (src < 0) throw ParameterError("training_image", "has no cell informed in every variable a node needs.");
+    const std::int64_t p = ti_.padded_index(src);
+    for (int v = 0; v < nvar_; ++v)
+      if (need & (std::uint32_t{1} << v)) state_[static_cast<std::size_t>(v)][c] = ti_.data(v)[p];
+    source_[c] = src;
+    ++w.stats.nodes;
+    w.stats.distance_sum += dist;
+    if (accepted) {
+      ++w.stats.accepted;
+      if (dist == 0.0f) ++w.stats.exact;
+    }
+  }
+
+ private:
+  // The n nearest informed nodes per variable: the node itself when informed, then the search
+  // window in its order (nearest first), stopping once every variable has n.
+  void gather(Index c, Worker& w) const {
+    const int n = params_.neighbors;
+    int open = 0;
+    for (int v = 0; v < nvar_; ++v) {
+      auto& l = w.lags[static_cast<std::size_t>(v)];
+      l.size = 0;
+      l.weight_sum = 0;
+      const float x = state_[static_cast<std::size_t>(v)][c];
+      if (!std::isnan(x)) {
+        l.delta[0] = 0;
+        l.value[0] = x;
+        l.weight[0] = 1.0f;
+        l.size = 1;
+        l.weight_sum = 1.0;
+      }
+      if (l.size < n) ++open;
+    }
+    const Ijk at = grid_.cell(c);
+    const Ijk& shape = grid_.shape();
+    for (const Look& look : looks_) {
+      if (open == 0) break;
+      const Index z = at[0] + look.lag[0], y = at[1] + look.lag[1], x = at[2] + look.lag[2];
+      if (z < 0 || z >= shape[0] || y < 0 || y >= shape[1] || x < 0 || x >= shape[2]) continue;
+      const Index g = c + look.grid_delta;
+      for (int v = 0; v < nvar_; ++v) {
+        auto& l = w.lags[static_cast<std::size_t>(v)];
+        if (l.size >= n) continue;
+        const float val = state_[static_cast<std::size_t>(v)][g];
+        if (std::isnan(val)) continue;
+        const auto k = static_cast<std::size_t>(l.size++);
+        l.delta[k] = look.ti_delta;
+        l.value[k] = val;
+        l.weight[k] = look.weight;
+        l.weight_sum += look.weight;
+        if (l.size == n) --open;
+      }
+    }
+    w.active.clear();
+    double total = 0;
+    for (int v = 0; v < nvar_; ++v)
+      if (w.lags[static_cast<std::size_t>(v)].size > 0) {
+        w.active.push_back(v);
+        total += params_.weights[static_cast<std::size_t>(v)];
+      }
+    for (int v : w.active) w.share[static_cast<std::size_t>(v)] = static_cast<float>(params_.weights[static_cast<std::size_t>(v)] / total);
+  }
+
+  // Scans the TI from the node's random start; returns true when a candidate was accepted.
+  bool scan(Index c, std::uint32_t need, Worker& w, Index& src, float& dist) const {
+    const Index n = ti_.size();
+    const Index nx = ti_.shape()[2];
+    const std::uint32_t* informed = ti_.informed();
+    const float inf = std::numeric_limits<float>::infinity();
+    float best = inf;
+    Index best_src = -1;
+    Index q = detail::scan_start(params_.seed, c, n);
+    Index scanned = 0;
+    float base[kLanes], acc[kLanes], lim[kLanes];
+    bool valid[kLanes];
+    Stats& st = w.stats;
+    while (scanned < n) {
+      const Index x = q % nx;
+      const Index left = scanned < limit_ ? limit_ - scanned : n - scanned;
+      const int lanes = static_cast<int>(std::min<Index>({kLanes, nx - x, left}));
+      const std::int64_t p = ti_.padded_row(q / nx) + x;
+      st.candidates += lanes;
+      bool any = false;
+      for (int j = 0; j < kLanes; ++j) {
+        valid[j] = j < lanes && (informed[p + j] & need) == need;
+        any |= valid[j];
+      }
+      bool aborted = !any;
+      if (any) {
+        for (int j = 0; j < kLanes; ++j) base[j] = 0.0f;
+        const bool prune = best < inf;
+        for (int v : w.active) {
+          const auto& lags = w.lags[static_cast<std::size_t>(v)];
+          const bool cat = ti_.kind(v) == Kind::categorical;
+          const float share = w.share[static_cast<std::size_t>(v)];
+          const auto sum = static_cast<float>(lags.weight_sum);
+          if (prune)
+            for (int j = 0; j < kLanes; ++j) {
+              const float room = (best - base[j]) / share;  // distance this variable may still add
+              lim[j] = !valid[j] || room <= 0.0f ? -1.0f : (cat ? room : room * room) * sum;
+            }
+          for (int j = 0; j < kLanes; ++j) acc[j] = 0.0f;
+          const float* data = ti_.data(v);
+          for (int k0 = 0; k0 < lags.size; k0 += kChunk) {
+            const int k1 = std::min(k0 + kChunk, lags.size);
+            if (cat)
+              detail::accumulate_categorical(data, p, lags, k0, k1, acc);
+            else
+              detail::accumulate_continuous(data, p, lags, k0, k1, acc);
+            st.comparisons += std::int64_t{lanes} * (k1 - k0);
+            if (prune) {
+              bool all_out = true;
+              for (int j = 0; j < kLanes; ++j) all_out &= acc[j] > lim[j];
+              if (all_out) {
+                aborted = true;
+                break;
+              }
+            }
+          }
+          if (aborted) break;
+          for (int j = 0; j < kLanes; ++j) {
+            const float m = acc[j] / sum;
+            base[j] += share * (cat ? m : std::sqrt(m));
+          }
+        }
+      }
+      if (!aborted) {
+        for (int j = 0; j < lanes; ++j) {
+          if (!valid[j]) continue;
+          const float d = base[j];
+          if (d <= accept_) {
+            src = q + j;
+            dist = d;
+            return true;
+          }
+          if (d < best) {
+            best = d;
+            best_src = q + j;
+          }
+        }
+      }
+      scanned += lanes;
+      q += lanes;
+      if (q == n) q = 0;
+      if (scanned >= limit_ && best_src >= 0) break;
+    }
+    src = best_src;
+    dist = best;
+    return false;
+  }
+
+  const TrainingImage& ti_;
+  const Grid& grid_;
+  const std::vector<float*>& state_;
+  const std::vector<bool>& auxiliary_;
+  const Params& params_;
+  std::int64_t* source_;
+  int nvar_ = 0;
+  std::vector<Look> looks_;
+  Index limit_ = 1;
+  float accept_ = 0;
+};
+
+void check(const TrainingImage& ti, const Grid& grid, const std::vector<float*>& state, const std::vector<bool>& auxiliary,
+           const Params& params, const std::int64_t* source) {
+  const int nvar = ti.variables();
+  require(static_cast<int>(state.size()) == nvar, "hard", "must give one grid array per training-image variable.");
+  require(static_cast<int>(auxiliary.size()) == nvar, "auxiliary", "must flag every training-image variable.");
+  require(static_cast<int>(params.weights.size()) == nvar, "weights", "must hold one weight per variable.");
+  require(source != nullptr, "source", "must be given.");
+  for (int v = 0; v < nvar; ++v) {
+    require(state[static_cast<std::size_t>(v)] != nullptr, "hard", "is missing the grid array of a variable.");
+    const double w = params.weights[static_cast<std::size_t>(v)];
+    require(std::isfinite(w) && w > 0, "weights", "must hold finite positive numbers.");
+  }
+  require(params.neighbors >= 1 && params.neighbors <= 100000, "neighbors", "must be an integer in [1, 100000].");
+  require(params.accept_distance >= 0 && params.accept_distance <= 1, "accept_distance", "must be a number in [0, 1].");
+  require(params.scan_fraction > 0 && params.scan_fraction <= 1, "scan_fraction", "must be a number in (0, 1].");
+  require(std::isfinite(params.lag_power) && params.lag_power >= 0, "lag_power", "must be a finite number >= 0.");
+  require(params.max_batch >= 1, "max_batch", "must be at least 1.");
+  for (const Offset& o : params.search)
+    for (int a = 0; a < 3; ++a)
+      require(std::abs(o[a]) <= ti.reach()[a], "search_radius",
+              "reaches beyond the padding of the training image; build the image with the same radius.");
+  bool simulated = false;
+  for (int v = 0; v < nvar; ++v) simulated |= !auxiliary[static_cast<std::size_t>(v)];
+  require(simulated, "auxiliary", "must leave at least one variable to simulate.");
+  const Index cells = grid.size();
+  for (int v = 0; v < nvar; ++v) {
+    if (!auxiliary[static_cast<std::size_t>(v)]) continue;
+    const float* s = state[static_cast<std::size_t>(v)];
+    for (Index i = 0; i < cells; ++i)
+      require(!std::isnan(s[i]), "auxiliary", "must be informed at every grid node; variable " + str(v) +
+                                                  " is unknown at cell " + str(i) + ".");
+  }
+}
+
+}  // namespace
+
+Stats simulate(const TrainingImage& ti, const Grid& grid, const std::vector<float*>& state,
+               const std::vector<bool>& auxiliary, const Params& params, std::int64_t* source, WorkControl& ctl,
+               const Poll& poll) {
+  check(ti, grid, state, auxiliary, params, source);
+  const auto t0 = std::chrono::steady_clock::now();
+  Simulation sim(ti, grid, state, auxiliary, params, source);
+  const Index cells = grid.size();
+  std::fill(source, source + cells, std::int64_t{-1});
+
+  std::uint32_t all = 0;
+  for (int v = 0; v < ti.variables(); ++v)
+    if (!auxiliary[static_cast<std::size_t>(v)]) all |= std::uint32_t{1} << v;
+  std::vector<Index> path;
+  bool any_full = false;
+  for (Index c = 0; c < cells; ++c) {
+    const std::uint32_t need = sim.need_at(c);
+    if (need) path.push_back(c);
+    any_full |= need == all;
+  }
+  if (!path.empty()) {
+    // A node missing every variable needs a TI cell informed in all of them; others need a subset.
+    const Index usable = ti.count_informed(any_full ? all : 0);
+    require(usable > 0, "training_image",
+            "has no cell where every simulated variable is informed; at least one is needed to copy from.");
+  }
+  ctl.total = static_cast<std::int64_t>(path.size());
+
+  int threads = resolve_threads(params.threads);
+  std::vector<Worker> workers;
+  if (params.path == PathKind::random) {
+    shuffle_path(path, params.seed, 0);
+    Offset reach{0, 0, 0};
+    for (const Offset& o : params.search)
+      for (int a = 0; a < 3; ++a) reach[a] = std::max(reach[a], std::abs(o[a]));
+    const auto starts = conflict_free_batches(grid, 0, reach, path, params.max_batch);
+    std::int64_t widest = 1;
+    for (std::size_t b = 0; b + 1 < starts.size(); ++b) widest = std::max(widest, starts[b + 1] - starts[b]);
+    threads = static_cast<int>(std::min<std::int64_t>(threads, widest));
+    for (int i = 0; i < threads; ++i) workers.push_back(sim.make_worker());
+    run_batches(
+        threads, starts, [&](int worker, std::int64_t pos) { sim.node(path[static_cast<std::size_t>(pos)], workers[static_cast<std::size_t>(worker)]); },
+        [](std::size_t) {}, ctl, poll);
+  } else {
+    // A sweep is a unilateral scheme: each node must see all nodes before it, so it runs on one thread.
+    threads = 1;
+    workers.push_back(sim.make_worker());
+    run_supervised(
+        1,
+        [&](int, int) {
+          for (Index c : path) {
+            if (ctl.cancelled()) return;
+            sim.node(c, workers[0]);
+            ctl.done.fetch_add(1, std::memory_order_relaxed);
+          }
+        },
+        ctl, poll);
+  }
+  Stats total;
+  for (const Worker& w : workers) {
+    total.nodes += w.stats.nodes;
+    total.candidates += w.stats.candidates;
+    total.comparisons += w.stats.comparisons;
+    total.accepted += w.stats.accepted;
+    total.exact += w.stats.exact;
+    total.distance_sum += w.stats.distance_sum;
+  }
+  total.threads = threads;
+  total.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  return total;
+}
+
+}  // namespace sl::direct

@@ -1,0 +1,141 @@
+// Direct sampling (Mariethoz, Renard & Straubhaar 2010, "The Direct Sampling method to perform
+// multiple-point geostatistical simulations", Water Resources Research 46, W11536): each node copies
+// the value of a training-image (TI) location whose neighbourhood is close enough to the node's own,
+// with no probability model in between.
+//
+// Distances (all in [0, 1]):
+//  * continuous variable: root mean square of the lag differences, each difference divided by the
+//    TI's range of that variable (values arrive normalised to [0, 1] by that range) and clamped to 1;
+//    the mean is weighted by the lag weights. L2 rather than L1: a single badly matching neighbour
+//    counts more than several slightly off ones, which keeps sharp features (edges, extremes) in place,
+//    and the squared sum needs no branch or abs in the kernel;
+//  * categorical variable: weighted fraction of neighbours whose category differs;
+//  * several variables: the mean of the per-variable distances weighted by the variable weights,
+//    over the variables that have at least one neighbour at the node.
+// A lag that falls on a masked or outside-the-TI location counts as a full mismatch (1).
+//
+// Scan: candidates are the TI cells in flat C order starting at a random cell (a pure function of
+// (seed, node)), wrapping around. The first candidate with distance <= accept_distance is taken;
+// after scan_fraction of the TI the best one seen is taken (the first of equals). A candidate must be
+// informed in every variable the node needs. Kernels evaluate 16 consecutive candidates at once: the
+// TI values one lag reads for consecutive candidates are contiguous, so the inner loop is a plain
+// vector loop over candidates, and a block stops early once none of its candidates can beat the best.
+#pragma once
+
+#include <array>
+#include <cstdint>
+#include <vector>
+
+#include "core/grid.hpp"
+#include "core/pool.hpp"
+#include "core/template.hpp"
+
+namespace sl::direct {
+
+enum class Kind : std::uint8_t { continuous = 0, categorical = 1 };
+
+// Candidates evaluated together by the kernels.
+inline constexpr int kLanes = 16;
+// Largest number of variables (one bit each in the per-cell informed mask).
+inline constexpr int kMaxVariables = 32;
+// Value stored for a masked continuous TI cell: far outside [0, 1], so the clamped difference is 1.
+inline constexpr float kMaskedContinuous = 1.0e4f;
+// Value stored for a masked categorical TI cell: never equal to a category code (codes are >= 0).
+inline constexpr float kMaskedCategory = -1.0f;
+
+// A multivariate TI in the padded layout the scan reads: every lag of the search template, from any
+// real cell, lands inside the padded arrays, so the kernels never test bounds.
+class TrainingImage {
+ public:
+  // `values[v]` holds shape[0]*shape[1]*shape[2] floats in C order: continuous values normalised by the
+  // TI range (NaN = masked), category codes as floats (negative or NaN = masked). `reach` is the
+  // largest |lag| per axis the scan will read.
+  TrainingImage(const Ijk& shape, const std::vector<const float*>& values, const std::vector<Kind>& kinds,
+                const Offset& reach);
+
+  const Ijk& shape() const noexcept { return shape_; }
+  Index size() const noexcept { return shape_[0] * shape_[1] * shape_[2]; }
+  int variables() const noexcept { return static_cast<int>(kinds_.size()); }
+  Kind kind(int v) const noexcept { return kinds_[static_cast<std::size_t>(v)]; }
+  const Offset& reach() const noexcept { return reach_; }
+  // Offset between two padded cells `lag` apart.
+  std::int64_t padded_delta(const Offset& lag) const noexcept {
+    return (std::int64_t{lag[0]} * padded_[1] + lag[1]) * padded_[2] + lag[2];
+  }
+  // Padded position of the real cell with flat index i.
+  std::int64_t padded_index(Index i) const noexcept;
+  // Padded position of the first cell of real row r (rows run along x; r = z * ny + y).
+  std::int64_t padded_row(Index r) const noexcept {
+    return ((r / shape_[1] + reach_[0]) * padded_[1] + (r % shape_[1] + reach_[1])) * padded_[2] + reach_[2];
+  }
+  const float* data(int v) const noexcept { return values_[static_cast<std::size_t>(v)].data(); }
+  const std::uint32_t* informed() const noexcept { return informed_.data(); }
+  // Number of real cells informed in every variable of `need` (bit v = variable v).
+  Index count_informed(std::uint32_t need) const noexcept;
+
+ private:
+  Ijk shape_{};
+  Offset reach_{};
+  Ijk padded_{};
+  std::vector<Kind> kinds_;
+  std::vector<std::vector<float>> values_;  // padded, masked cells hold the masked sentinels
+  std::vector<std::uint32_t> informed_;     // padded, bit v set when variable v is informed
+};
+
+enum class PathKind : std::uint8_t { random = 0, sweep = 1 };
+
+struct Params {
+  std::int32_t neighbors = 30;       // n nearest informed nodes per variable
+  double accept_distance = 0.05;     // accept the first candidate at or below this distance
+  double scan_fraction = 0.3;        // fraction of the TI scanned before the best seen is taken
+  std::vector<Offset> search;        // search window, nearest first (Template::ellipsoid order)
+  std::vector<double> weights;       // per variable, positive
+  double lag_power = 0.0;            // lag weight (1 + |lag|)**-lag_power, |lag| in cells
+  PathKind path = PathKind::random;  // random path in conflict-free batches, or one sweep in flat order
+  std::uint64_t seed = 0;
+  int threads = 0;                   // <= 0: all hardware threads
+  std::int64_t max_batch = 256;      // nodes per conflict-free batch (random path)
+};
+
+// Engine counters of one run.
+struct Stats {
+  std::int64_t nodes = 0;        // nodes simulated
+  std::int64_t candidates = 0;   // TI candidates looked at (all lanes of all blocks scanned)
+  std::int64_t comparisons = 0;  // neighbour comparisons made (lane x lag)
+  std::int64_t accepted = 0;     // nodes that stopped at a candidate <= accept_distance
+  std::int64_t exact = 0;        // of those, nodes whose accepted distance was exactly 0
+  double distance_sum = 0;       // sum over nodes of the distance of the copied candidate
+  double seconds = 0;            // wall time of the simulation proper
+  int threads = 0;               // worker threads used
+};
+
+// Simulates every grid node at which some non-auxiliary variable is unknown (NaN in `state`).
+// `state[v]` holds grid.size() floats in the TI's normalised units, NaN where unknown; auxiliary
+// variables must be fully informed. Writes into `state` the copied values and into `source` (grid.size()
+// entries) the flat TI index each node copied from, -1 where nothing was simulated.
+Stats simulate(const TrainingImage& ti, const Grid& grid, const std::vector<float*>& state,
+               const std::vector<bool>& auxiliary, const Params& params, std::int64_t* source, WorkControl& ctl,
+               const Poll& poll);
+
+namespace detail {
+
+// The lags of one node for one variable: padded TI offsets, node values and lag weights.
+struct LagSet {
+  std::vector<std::int64_t> delta;
+  std::vector<float> value;
+  std::vector<float> weight;
+  double weight_sum = 0;
+  int size = 0;
+};
+
+// acc[j] += sum over lags k in [k0, k1) of weight[k] * min((ti[p + j + delta[k]] - value[k])**2, 1).
+void accumulate_continuous(const float* ti, std::int64_t p, const LagSet& lags, int k0, int k1, float* acc);
+// acc[j] += sum over lags k in [k0, k1) of weight[k] * (ti[p + j + delta[k]] != value[k]).
+void accumulate_categorical(const float* ti, std::int64_t p, const LagSet& lags, int k0, int k1, float* acc);
+
+// First scan candidate of a node: floor(u * n) with u the node's draw on the start stream.
+Index scan_start(std::uint64_t seed, Index cell, Index n) noexcept;
+
+}  // namespace detail
+
+}  // namespace sl::direct
