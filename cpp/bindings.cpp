@@ -292,6 +292,7 @@ void bind_direct(py::module_& m) {
         stats["exact"] = st.exact;
         stats["distance_sum"] = st.distance_sum;
         stats["seconds"] = st.seconds;
+        stats["cpu_seconds"] = st.cpu_seconds;
         stats["threads"] = st.threads;
         return py::make_tuple(state, source, stats);
       },

@@ -3,17 +3,26 @@
 #include <algorithm>
 #include <chrono>
 #include <cmath>
+#include <cstring>
 #include <limits>
 #include <string>
+
+#if defined(__unix__) || defined(__APPLE__)
+#include <time.h>
+#define SL_THREAD_CLOCK 1
+#endif
 
 #include "core/error.hpp"
 #include "core/path.hpp"
 #include "core/random.hpp"
 
-// Kernels are compiled for several instruction sets and picked at load time (GCC/Clang function
+// Every instruction-set version must round alike, so CMakeLists.txt builds this file with
+// -ffp-contract=off (no fused multiply-add) and -fno-math-errno (sqrt vectorises).
+
+// Kernels are compiled for several instruction sets and picked at load time by CPU features (GCC/Clang function
 // multi-versioning on x86-64 ELF); elsewhere they are plain C++ that the compiler vectorises.
 #if defined(__x86_64__) && defined(__ELF__) && (defined(__GNUC__) || defined(__clang__)) && !defined(STRATALOOM_NO_CLONES)
-#define SL_KERNEL __attribute__((target_clones("default", "arch=haswell", "arch=skylake-avx512")))
+#define SL_KERNEL __attribute__((target_clones("default", "arch=x86-64-v3", "arch=x86-64-v4")))
 #else
 #define SL_KERNEL
 #endif
@@ -21,6 +30,15 @@
 namespace sl::direct {
 
 namespace {
+
+// CPU time of the calling thread in seconds (0 where the platform has no thread clock).
+double thread_cpu_seconds() noexcept {
+#if defined(SL_THREAD_CLOCK) && defined(CLOCK_THREAD_CPUTIME_ID)
+  timespec ts{};
+  if (clock_gettime(CLOCK_THREAD_CPUTIME_ID, &ts) == 0) return static_cast<double>(ts.tv_sec) + 1e-9 * static_cast<double>(ts.tv_nsec);
+#endif
+  return 0.0;
+}
 
 // Lags evaluated between two checks of the early exit.
 constexpr int kChunk = 8;
@@ -84,40 +102,161 @@ Index TrainingImage::count_informed(std::uint32_t need) const noexcept {
 
 namespace detail {
 
-SL_KERNEL void accumulate_continuous(const float* ti, std::int64_t p, const LagSet& lags, int k0, int k1, float* acc) {
-  float a[kLanes];
-  for (int j = 0; j < kLanes; ++j) a[j] = acc[j];
-  const std::int64_t* delta = lags.delta.data();
-  const float* value = lags.value.data();
-  const float* weight = lags.weight.data();
-  for (int k = k0; k < k1; ++k) {
-    const float* t = ti + p + delta[k];
-    const float v = value[k];
-    const float w = weight[k];
-    for (int j = 0; j < kLanes; ++j) {
-      const float d = t[j] - v;
-      float s = d * d;
-      s = s < 1.0f ? s : 1.0f;
-      a[j] += w * s;
-    }
-  }
-  for (int j = 0; j < kLanes; ++j) acc[j] = a[j];
+#if defined(__GNUC__) || defined(__clang__)
+// 16 lanes as one vector value (GCC/Clang vector extensions): the compiler maps it to one AVX-512,
+// two AVX or four SSE registers, with no branch per lane.
+typedef float Lanes __attribute__((vector_size(kLanes * sizeof(float))));
+typedef std::int32_t LaneMask __attribute__((vector_size(kLanes * sizeof(float))));
+
+// Unaligned load of 16 lanes (a macro: a function returning a vector would change ABI per target).
+#define SL_LOAD_LANES(dst, src) std::memcpy(&(dst), (src), sizeof(Lanes))
+// Lane-wise m ? a : b.
+#define SL_SELECT(m, a, b) ((Lanes)((((LaneMask)(a)) & (m)) | (((LaneMask)(b)) & ~(m))))
+
+[[gnu::always_inline]] inline bool all_set(const LaneMask& m) noexcept {
+  std::uint64_t w[kLanes / 2];
+  std::memcpy(w, &m, sizeof w);
+  std::uint64_t r = ~std::uint64_t{0};
+  for (int i = 0; i < kLanes / 2; ++i) r &= w[i];
+  return r == ~std::uint64_t{0};
 }
 
-SL_KERNEL void accumulate_categorical(const float* ti, std::int64_t p, const LagSet& lags, int k0, int k1, float* acc) {
-  float a[kLanes];
-  for (int j = 0; j < kLanes; ++j) a[j] = acc[j];
-  const std::int64_t* delta = lags.delta.data();
-  const float* value = lags.value.data();
-  const float* weight = lags.weight.data();
-  for (int k = k0; k < k1; ++k) {
-    const float* t = ti + p + delta[k];
-    const float v = value[k];
-    const float w = weight[k];
-    for (int j = 0; j < kLanes; ++j) a[j] += t[j] != v ? w : 0.0f;
+SL_KERNEL bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
+                              std::int64_t& comparisons) {
+  static constexpr std::int32_t kIota[kLanes] = {0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15};
+  LaneMask informed, lane;
+  std::memcpy(&informed, node.informed + p, sizeof informed);
+  std::memcpy(&lane, kIota, sizeof lane);
+  const LaneMask need = LaneMask{} + static_cast<std::int32_t>(node.need);
+  const LaneMask valid = ((informed & need) == need) & (lane < lanes);
+  const Lanes inf = Lanes{} + std::numeric_limits<float>::infinity();
+  const Lanes zero = Lanes{};
+  const Lanes one = zero + 1.0f;
+  const Lanes minus_one = zero - 1.0f;
+  {
+    LaneMask none = valid == 0;
+    if (all_set(none)) return false;
   }
-  for (int j = 0; j < kLanes; ++j) acc[j] = a[j];
+  const bool prune = best < std::numeric_limits<float>::infinity();
+  const Lanes best_v = zero + best;
+  Lanes base = zero;
+  for (int a = 0; a < node.count; ++a) {
+    const LagSet& lags = *node.lags[static_cast<std::size_t>(a)];
+    const float* ti = node.data[static_cast<std::size_t>(a)] + p;
+    const bool cat = node.categorical[static_cast<std::size_t>(a)];
+    const float sum = node.sum[static_cast<std::size_t>(a)];
+    Lanes lim = minus_one;
+    if (prune) {
+      // A candidate is out once this variable alone adds more than the room left below `best`.
+      const Lanes room = (best_v - base) * node.inv_share[static_cast<std::size_t>(a)];
+      const Lanes scaled = cat ? room * sum : room * room * sum;
+      const LaneMask open = valid & (room > zero);
+      lim = SL_SELECT(open, scaled, minus_one);
+    }
+    // Two partial sums (even and odd lags) halve the add latency chain; their order is fixed.
+    Lanes acc = zero, even = zero, odd = zero;
+    const std::int64_t* delta = lags.delta.data();
+    const float* value = lags.value.data();
+    const float* weight = lags.weight.data();
+    for (int k0 = 0; k0 < lags.size; k0 += kChunk) {
+      const int k1 = std::min(k0 + kChunk, lags.size);
+      if (cat) {
+        for (int k = k0; k < k1; ++k) {
+          Lanes t;
+          SL_LOAD_LANES(t, ti + delta[k]);
+          const LaneMask differs = t != value[k];
+          const Lanes term = (Lanes)(differs & (LaneMask)(zero + weight[k]));
+          if ((k & 1) == 0)
+            even += term;
+          else
+            odd += term;
+        }
+      } else {
+        for (int k = k0; k < k1; ++k) {
+          Lanes t;
+          SL_LOAD_LANES(t, ti + delta[k]);
+          const Lanes d = t - value[k];
+          const Lanes sq = d * d;
+          const Lanes clamped = SL_SELECT(sq < one, sq, one);
+          const Lanes term = weight[k] * clamped;  // separate statements: no fused multiply-add
+          if ((k & 1) == 0)
+            even += term;
+          else
+            odd += term;
+        }
+      }
+      acc = even + odd;
+      comparisons += std::int64_t{lanes} * (k1 - k0);
+      if (prune) {
+        const LaneMask out_of_reach = acc > lim;
+        if (all_set(out_of_reach)) return false;
+      }
+    }
+    float m[kLanes];
+    const Lanes mean = acc / sum;
+    std::memcpy(m, &mean, sizeof m);
+    if (!cat)
+      for (int j = 0; j < kLanes; ++j) m[j] = std::sqrt(m[j]);
+    Lanes part;
+    std::memcpy(&part, m, sizeof part);
+    const Lanes weighted = node.share[static_cast<std::size_t>(a)] * part;
+    base += weighted;
+  }
+  const Lanes result = SL_SELECT(valid, base, inf);
+  std::memcpy(out, &result, sizeof result);
+  return true;
 }
+#else
+bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
+                    std::int64_t& comparisons) {
+  bool valid[kLanes], any = false;
+  for (int j = 0; j < kLanes; ++j) {
+    valid[j] = j < lanes && (node.informed[p + j] & node.need) == node.need;
+    any |= valid[j];
+  }
+  if (!any) return false;
+  const bool prune = best < std::numeric_limits<float>::infinity();
+  float base[kLanes] = {}, acc[kLanes], lim[kLanes], even[kLanes], odd[kLanes];
+  for (int a = 0; a < node.count; ++a) {
+    const LagSet& lags = *node.lags[static_cast<std::size_t>(a)];
+    const float* ti = node.data[static_cast<std::size_t>(a)] + p;
+    const bool cat = node.categorical[static_cast<std::size_t>(a)];
+    const float sum = node.sum[static_cast<std::size_t>(a)];
+    for (int j = 0; j < kLanes; ++j) {
+      const float room = (best - base[j]) * node.inv_share[static_cast<std::size_t>(a)];
+      lim[j] = !prune || !valid[j] || !(room > 0) ? -1.0f : (cat ? room * sum : room * room * sum);
+      acc[j] = even[j] = odd[j] = 0;
+    }
+    for (int k0 = 0; k0 < lags.size; k0 += kChunk) {
+      const int k1 = std::min(k0 + kChunk, lags.size);
+      for (int k = k0; k < k1; ++k) {
+        const float* t = ti + lags.delta[static_cast<std::size_t>(k)];
+        const float v = lags.value[static_cast<std::size_t>(k)], w = lags.weight[static_cast<std::size_t>(k)];
+        float* part = (k & 1) == 0 ? even : odd;
+        for (int j = 0; j < kLanes; ++j) {
+          const float d = t[j] - v;
+          const float term = cat ? (t[j] != v ? w : 0.0f) : w * std::min(d * d, 1.0f);
+          part[j] += term;
+        }
+      }
+      for (int j = 0; j < kLanes; ++j) acc[j] = even[j] + odd[j];
+      comparisons += std::int64_t{lanes} * (k1 - k0);
+      if (prune) {
+        bool all_out = true;
+        for (int j = 0; j < kLanes; ++j) all_out &= acc[j] > lim[j];
+        if (all_out) return false;
+      }
+    }
+    for (int j = 0; j < kLanes; ++j) {
+      const float m = acc[j] / sum;
+      const float part = node.share[static_cast<std::size_t>(a)] * (cat ? m : std::sqrt(m));
+      base[j] += part;
+    }
+  }
+  for (int j = 0; j < kLanes; ++j) out[j] = valid[j] ? base[j] : std::numeric_limits<float>::infinity();
+  return true;
+}
+#endif
 
 Index scan_start(std::uint64_t seed, Index cell, Index n) noexcept {
   const double u = to_unit(random_bits(seed, 0, static_cast<std::uint64_t>(cell), Stream::start));
@@ -132,8 +271,7 @@ namespace {
 // Per-worker scratch and counters, on their own cache lines.
 struct alignas(64) Worker {
   std::vector<detail::LagSet> lags;
-  std::vector<int> active;
-  std::vector<float> share;
+  detail::NodeView view;
   Stats stats;
 };
 
@@ -171,8 +309,7 @@ class Simulation {
       l.value.resize(cap);
       l.weight.resize(cap);
     }
-    w.active.reserve(static_cast<std::size_t>(nvar_));
-    w.share.resize(static_cast<std::size_t>(nvar_));
+    w.view.informed = ti_.informed();
     return w;
   }
 
@@ -188,6 +325,7 @@ class Simulation {
   void node(Index c, Worker& w) const {
     const std::uint32_t need = need_at(c);
     if (!need) return;
+    const double t0 = thread_cpu_seconds();
     gather(c, w);
     Index src = -1;
     float dist = 0;
@@ -197,6 +335,7 @@ class Simulation {
     for (int v = 0; v < nvar_; ++v)
       if (need & (std::uint32_t{1} << v)) state_[static_cast<std::size_t>(v)][c] = ti_.data(v)[p];
     source_[c] = src;
+    w.stats.cpu_seconds += thread_cpu_seconds() - t0;
     ++w.stats.nodes;
     w.stats.distance_sum += dist;
     if (accepted) {
@@ -245,97 +384,63 @@ class Simulation {
         if (l.size == n) --open;
       }
     }
-    w.active.clear();
     double total = 0;
     for (int v = 0; v < nvar_; ++v)
-      if (w.lags[static_cast<std::size_t>(v)].size > 0) {
-        w.active.push_back(v);
-        total += params_.weights[static_cast<std::size_t>(v)];
-      }
-    for (int v : w.active) w.share[static_cast<std::size_t>(v)] = static_cast<float>(params_.weights[static_cast<std::size_t>(v)] / total);
+      if (w.lags[static_cast<std::size_t>(v)].size > 0) total += params_.weights[static_cast<std::size_t>(v)];
+    auto& view = w.view;
+    view.count = 0;
+    for (int v = 0; v < nvar_; ++v) {
+      const auto& l = w.lags[static_cast<std::size_t>(v)];
+      if (l.size == 0) continue;
+      const auto a = static_cast<std::size_t>(view.count++);
+      view.data[a] = ti_.data(v);
+      view.lags[a] = &l;
+      view.share[a] = static_cast<float>(params_.weights[static_cast<std::size_t>(v)] / total);
+      view.inv_share[a] = 1.0f / view.share[a];
+      view.sum[a] = static_cast<float>(l.weight_sum);
+      view.categorical[a] = ti_.kind(v) == Kind::categorical;
+    }
   }
 
   // Scans the TI from the node's random start; returns true when a candidate was accepted.
   bool scan(Index c, std::uint32_t need, Worker& w, Index& src, float& dist) const {
     const Index n = ti_.size();
     const Index nx = ti_.shape()[2];
-    const std::uint32_t* informed = ti_.informed();
-    const float inf = std::numeric_limits<float>::infinity();
-    float best = inf;
+    w.view.need = need;
+    float best = std::numeric_limits<float>::infinity();
     Index best_src = -1;
     Index q = detail::scan_start(params_.seed, c, n);
     Index scanned = 0;
-    float base[kLanes], acc[kLanes], lim[kLanes];
-    bool valid[kLanes];
+    float d[kLanes];
     Stats& st = w.stats;
+    Index row = q / nx, x = q % nx;
+    std::int64_t row_start = ti_.padded_row(row);
+    const Index rows = n / nx;
     while (scanned < n) {
-      const Index x = q % nx;
       const Index left = scanned < limit_ ? limit_ - scanned : n - scanned;
       const int lanes = static_cast<int>(std::min<Index>({kLanes, nx - x, left}));
-      const std::int64_t p = ti_.padded_row(q / nx) + x;
       st.candidates += lanes;
-      bool any = false;
-      for (int j = 0; j < kLanes; ++j) {
-        valid[j] = j < lanes && (informed[p + j] & need) == need;
-        any |= valid[j];
-      }
-      bool aborted = !any;
-      if (any) {
-        for (int j = 0; j < kLanes; ++j) base[j] = 0.0f;
-        const bool prune = best < inf;
-        for (int v : w.active) {
-          const auto& lags = w.lags[static_cast<std::size_t>(v)];
-          const bool cat = ti_.kind(v) == Kind::categorical;
-          const float share = w.share[static_cast<std::size_t>(v)];
-          const auto sum = static_cast<float>(lags.weight_sum);
-          if (prune)
-            for (int j = 0; j < kLanes; ++j) {
-              const float room = (best - base[j]) / share;  // distance this variable may still add
-              lim[j] = !valid[j] || room <= 0.0f ? -1.0f : (cat ? room : room * room) * sum;
-            }
-          for (int j = 0; j < kLanes; ++j) acc[j] = 0.0f;
-          const float* data = ti_.data(v);
-          for (int k0 = 0; k0 < lags.size; k0 += kChunk) {
-            const int k1 = std::min(k0 + kChunk, lags.size);
-            if (cat)
-              detail::accumulate_categorical(data, p, lags, k0, k1, acc);
-            else
-              detail::accumulate_continuous(data, p, lags, k0, k1, acc);
-            st.comparisons += std::int64_t{lanes} * (k1 - k0);
-            if (prune) {
-              bool all_out = true;
-              for (int j = 0; j < kLanes; ++j) all_out &= acc[j] > lim[j];
-              if (all_out) {
-                aborted = true;
-                break;
-              }
-            }
-          }
-          if (aborted) break;
-          for (int j = 0; j < kLanes; ++j) {
-            const float m = acc[j] / sum;
-            base[j] += share * (cat ? m : std::sqrt(m));
-          }
-        }
-      }
-      if (!aborted) {
+      if (detail::evaluate_block(w.view, row_start + x, lanes, best, d, st.comparisons)) {
+        const Index q0 = row * nx + x;
         for (int j = 0; j < lanes; ++j) {
-          if (!valid[j]) continue;
-          const float d = base[j];
-          if (d <= accept_) {
-            src = q + j;
-            dist = d;
+          if (d[j] <= accept_) {
+            src = q0 + j;
+            dist = d[j];
             return true;
           }
-          if (d < best) {
-            best = d;
-            best_src = q + j;
+          if (d[j] < best) {
+            best = d[j];
+            best_src = q0 + j;
           }
         }
       }
       scanned += lanes;
-      q += lanes;
-      if (q == n) q = 0;
+      x += lanes;
+      if (x == nx) {
+        x = 0;
+        if (++row == rows) row = 0;
+        row_start = ti_.padded_row(row);
+      }
       if (scanned >= limit_ && best_src >= 0) break;
     }
     src = best_src;
@@ -456,6 +561,7 @@ Stats simulate(const TrainingImage& ti, const Grid& grid, const std::vector<floa
     total.accepted += w.stats.accepted;
     total.exact += w.stats.exact;
     total.distance_sum += w.stats.distance_sum;
+    total.cpu_seconds += w.stats.cpu_seconds;
   }
   total.threads = threads;
   total.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();

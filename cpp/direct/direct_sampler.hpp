@@ -106,6 +106,7 @@ struct Stats {
   std::int64_t exact = 0;        // of those, nodes whose accepted distance was exactly 0
   double distance_sum = 0;       // sum over nodes of the distance of the copied candidate
   double seconds = 0;            // wall time of the simulation proper
+  double cpu_seconds = 0;        // CPU time the workers spent on nodes (thread CPU clocks; 0 if unavailable)
   int threads = 0;               // worker threads used
 };
 
@@ -128,10 +129,24 @@ struct LagSet {
   int size = 0;
 };
 
-// acc[j] += sum over lags k in [k0, k1) of weight[k] * min((ti[p + j + delta[k]] - value[k])**2, 1).
-void accumulate_continuous(const float* ti, std::int64_t p, const LagSet& lags, int k0, int k1, float* acc);
-// acc[j] += sum over lags k in [k0, k1) of weight[k] * (ti[p + j + delta[k]] != value[k]).
-void accumulate_categorical(const float* ti, std::int64_t p, const LagSet& lags, int k0, int k1, float* acc);
+// What a block evaluation needs about one node: the variables that have neighbours there, in order.
+struct NodeView {
+  const std::uint32_t* informed = nullptr;  // the TI's padded informed masks
+  std::uint32_t need = 0;                   // variables a candidate must be informed in
+  int count = 0;                            // entries used below
+  std::array<const float*, kMaxVariables> data{};
+  std::array<const LagSet*, kMaxVariables> lags{};
+  std::array<float, kMaxVariables> share{};      // variable weight / sum of the weights used
+  std::array<float, kMaxVariables> inv_share{};  // 1 / share
+  std::array<float, kMaxVariables> sum{};        // sum of the lag weights
+  std::array<bool, kMaxVariables> categorical{};
+};
+
+// Distances of the kLanes candidates at padded positions p, p + 1, ...: +inf for lanes >= `lanes` and
+// for candidates not informed in `need`. Returns false (leaving `out` undefined) when the block was
+// abandoned because no candidate can get below `best`. Adds the comparisons made to `comparisons`.
+bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
+                    std::int64_t& comparisons);
 
 // First scan candidate of a node: floor(u * n) with u the node's draw on the start stream.
 Index scan_start(std::uint64_t seed, Index cell, Index n) noexcept;

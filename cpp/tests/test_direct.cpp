@@ -83,41 +83,71 @@ double brute_distance(const Ijk& tshape, const std::vector<std::vector<float>>& 
 
 }  // namespace
 
-SL_TEST(direct_kernels_match_a_scalar_loop) {
+SL_TEST(direct_block_kernel_matches_a_scalar_loop) {
   const Ijk shape{3, 9, 40};
   const auto a = field(shape, 11, 0);
-  const auto b = field(shape, 12, 3);
+  auto b = field(shape, 12, 3);
+  for (auto& x : b) x = std::floor(x * 2.99f);  // category codes 0..2
+  b[5] = -1;                                     // a masked category
   const Offset reach{1, 2, 3};
   const TrainingImage ti(shape, {a.data(), b.data()}, {Kind::continuous, Kind::categorical}, reach);
-  sl::direct::detail::LagSet lags;
   const auto t = Template::box({1, 2, 3});
-  for (std::size_t k = 0; k < 20; ++k) {
-    lags.delta.push_back(ti.padded_delta(t.offsets()[k * 3]));
-    lags.value.push_back(unit(99, k) < 0.3f ? 0.5f : unit(98, k));
-    lags.weight.push_back(0.5f + unit(97, k));
+  sl::direct::detail::LagSet lc, lk;
+  for (std::size_t k = 0; k < 21; ++k) {
+    for (auto* l : {&lc, &lk}) {
+      l->delta.push_back(ti.padded_delta(t.offsets()[k * 3]));
+      l->weight.push_back(0.5f + unit(97, k));
+      l->weight_sum += l->weight.back();
+    }
+    lc.value.push_back(unit(98, k));
+    lk.value.push_back(std::floor(unit(99, k) * 2.99f));
   }
-  lags.size = 20;
+  lc.size = 21;
+  lk.size = 13;
+  lk.weight_sum = 0;
+  for (int k = 0; k < 13; ++k) lk.weight_sum += lk.weight[static_cast<std::size_t>(k)];
+  sl::direct::detail::NodeView view;
+  view.informed = ti.informed();
+  view.need = 3;
+  view.count = 2;
+  view.data = {ti.data(0), ti.data(1)};
+  view.lags = {&lc, &lk};
+  view.share = {0.25f, 0.75f};
+  view.inv_share = {4.0f, 1.0f / 0.75f};
+  view.sum = {static_cast<float>(lc.weight_sum), static_cast<float>(lk.weight_sum)};
+  view.categorical = {false, true};
   for (const Index cell : {Index{0}, Index{41}, Index{3 * 9 * 40 - 16}}) {
     const std::int64_t p = ti.padded_index(cell);
-    float acc_c[kLanes] = {}, acc_k[kLanes] = {};
-    sl::direct::detail::accumulate_continuous(ti.data(0), p, lags, 0, 7, acc_c);
-    sl::direct::detail::accumulate_continuous(ti.data(0), p, lags, 7, 20, acc_c);
-    std::vector<float> b_lags(lags.value);
-    for (auto& x : lags.value) x = std::floor(x * 3.0f);  // category codes 0..2
-    sl::direct::detail::accumulate_categorical(ti.data(1), p, lags, 0, 20, acc_k);
+    float out[kLanes];
+    std::int64_t comparisons = 0;
+    SL_CHECK(sl::direct::detail::evaluate_block(view, p, 11, std::numeric_limits<float>::infinity(), out, comparisons));
+    SL_CHECK(comparisons == 11 * (21 + 13));
+    double lowest = 2;
     for (int j = 0; j < kLanes; ++j) {
-      double sc = 0, sk = 0;
-      for (int k = 0; k < 20; ++k) {
-        const float* tc = ti.data(0) + p + j + lags.delta[static_cast<std::size_t>(k)];
-        const float* tk = ti.data(1) + p + j + lags.delta[static_cast<std::size_t>(k)];
-        const double d = double(*tc) - b_lags[static_cast<std::size_t>(k)];
-        sc += lags.weight[static_cast<std::size_t>(k)] * std::min(1.0, d * d);
-        sk += lags.weight[static_cast<std::size_t>(k)] * (*tk != lags.value[static_cast<std::size_t>(k)] ? 1.0 : 0.0);
+      const bool masked = (ti.informed()[p + j] & 3u) != 3u;
+      if (j >= 11 || masked) {
+        SL_CHECK(std::isinf(out[j]));
+        continue;
       }
-      SL_CHECK(std::abs(acc_c[j] - sc) < 1e-4);
-      SL_CHECK(std::abs(acc_k[j] - sk) < 1e-4);
+      double sc = 0, sk = 0;
+      for (int k = 0; k < 21; ++k) {
+        const float x = ti.data(0)[p + j + lc.delta[static_cast<std::size_t>(k)]];
+        const double d = double(x) - lc.value[static_cast<std::size_t>(k)];
+        sc += lc.weight[static_cast<std::size_t>(k)] * std::min(1.0, d * d);  // outside cells hold 1e4: d*d > 1
+      }
+      for (int k = 0; k < 13; ++k) {
+        const float x = ti.data(1)[p + j + lk.delta[static_cast<std::size_t>(k)]];
+        sk += lk.weight[static_cast<std::size_t>(k)] * (x != lk.value[static_cast<std::size_t>(k)] ? 1.0 : 0.0);
+      }
+      const double expect = 0.25 * std::sqrt(sc / lc.weight_sum) + 0.75 * sk / lk.weight_sum;
+      SL_CHECK(std::abs(out[j] - expect) < 1e-5);
+      lowest = std::min(lowest, expect);
     }
-    lags.value = b_lags;
+    // A best below every lane's distance abandons the block, one just above it does not.
+    comparisons = 0;
+    SL_CHECK(!sl::direct::detail::evaluate_block(view, p, 11, static_cast<float>(lowest) * 0.5f, out, comparisons));
+    SL_CHECK(comparisons < 11 * (21 + 13));
+    SL_CHECK(sl::direct::detail::evaluate_block(view, p, 11, static_cast<float>(lowest) * 1.01f + 1e-6f, out, comparisons));
   }
 }
 

@@ -5,6 +5,8 @@ from __future__ import annotations
 from importlib.metadata import PackageNotFoundError
 from importlib.metadata import version as _version
 
+from .direct import DirectSampler
+from .downscale import downscale
 from .errors import MemoryLimitError, ParameterError, ParameterTypeError, StudyError
 from .grid import Grid
 from .paths import conflict_free_batches, random_path, uniform_draws
@@ -16,6 +18,7 @@ except PackageNotFoundError:  # running from a source tree without an install
     __version__ = "0+unknown"
 
 __all__ = [
+    "DirectSampler",
     "Grid",
     "MemoryLimitError",
     "ParameterError",
@@ -24,6 +27,7 @@ __all__ = [
     "Template",
     "__version__",
     "conflict_free_batches",
+    "downscale",
     "random_path",
     "uniform_draws",
 ]
