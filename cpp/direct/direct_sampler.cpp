@@ -422,6 +422,15 @@ class Simulation {
       st.candidates += lanes;
       if (detail::evaluate_block(w.view, row_start + x, lanes, best, d, st.comparisons)) {
         const Index q0 = row * nx + x;
+        if (scanned >= limit_) {
+          // Past the limit with nothing usable seen: the first informed candidate is taken.
+          for (int j = 0; j < lanes; ++j)
+            if (d[j] < std::numeric_limits<float>::infinity()) {
+              src = q0 + j;
+              dist = d[j];
+              return d[j] <= accept_;
+            }
+        }
         for (int j = 0; j < lanes; ++j) {
           if (d[j] <= accept_) {
             src = q0 + j;

@@ -17,7 +17,8 @@
 // Scan: candidates are the TI cells in flat C order starting at a random cell (a pure function of
 // (seed, node)), wrapping around. The first candidate with distance <= accept_distance is taken;
 // after scan_fraction of the TI the best one seen is taken (the first of equals). A candidate must be
-// informed in every variable the node needs. Kernels evaluate 16 consecutive candidates at once: the
+// informed in every variable the node needs; when none of the scanned fraction is, the first one
+// after it that is gets taken. Kernels evaluate 16 consecutive candidates at once: the
 // TI values one lag reads for consecutive candidates are contiguous, so the inner loop is a plain
 // vector loop over candidates, and a block stops early once none of its candidates can beat the best.
 #pragma once

@@ -41,7 +41,8 @@ _MAX_CODE = 2**24 - 1
 _MAX_BATCH = 256
 
 
-# --- the declarative table of constraints -------------------------------------------------------
+# --- the declarative table of constraints ---
+
 
 @dataclass(frozen=True)
 class _Integer:
@@ -59,7 +60,9 @@ class _Real:
     low_open: bool = False
 
     def check(self, value: Any, name: str, names: list[str]) -> float:
-        return v.real(value, name, low=self.low, high=self.high, low_open=self.low_open, owner=_OWNER)
+        return v.real(
+            value, name, low=self.low, high=self.high, low_open=self.low_open, owner=_OWNER
+        )
 
 
 @dataclass(frozen=True)
@@ -78,7 +81,9 @@ class _Radius:
             raise v.fail_type(name, "None, a number or a sequence of 2 or 3 numbers", value, _OWNER)
         items = list(value)
         if len(items) not in (2, 3):
-            raise v.fail(name, "None, a number or a sequence of 2 or 3 numbers (z, y, x)", value, _OWNER)
+            raise v.fail(
+                name, "None, a number or a sequence of 2 or 3 numbers (z, y, x)", value, _OWNER
+            )
         out = tuple(v.real(x, name, low=0, high=self.high, owner=_OWNER) for x in items)
         if max(out) < 1:
             raise v.fail(name, "radii reaching at least one cell (some radius >= 1)", value, _OWNER)
@@ -97,15 +102,23 @@ class _PerVariable:
         if isinstance(value, Mapping):
             unknown = [k for k in value if k not in names]
             if unknown:
-                raise v.fail(name, f"a mapping over the training-image variables {names}", unknown[0], _OWNER)
+                raise v.fail(
+                    name, f"a mapping over the training-image variables {names}", unknown[0], _OWNER
+                )
             return {k: self.item.check(x, f"{name}[{k!r}]", names) for k, x in value.items()}
         if isinstance(value, Sequence) and not isinstance(value, (str, bytes)):
             if len(value) != len(names):
-                raise v.fail(name, f"a sequence of {len(names)} entries, one per variable", value, _OWNER)
-            return {k: self.item.check(x, f"{name}[{k!r}]", names) for k, x in zip(names, value, strict=True)}
+                raise v.fail(
+                    name, f"a sequence of {len(names)} entries, one per variable", value, _OWNER
+                )
+            return {
+                k: self.item.check(x, f"{name}[{k!r}]", names)
+                for k, x in zip(names, value, strict=True)
+            }
         if len(names) != 1:
-            raise v.fail_type(name, "a mapping from variable name to value for a multi-variable TI", value,
-                              _OWNER)
+            raise v.fail_type(
+                name, "a mapping from variable name to value for a multi-variable TI", value, _OWNER
+            )
         return {names[0]: self.item.check(value, name, names)}
 
 
@@ -133,7 +146,9 @@ class _Names:
             if x not in names:
                 raise v.fail(name, f"names among the training-image variables {names}", x, _OWNER)
         if len(set(items)) == len(names):
-            raise v.fail(name, "names that leave at least one variable to simulate", tuple(items), _OWNER)
+            raise v.fail(
+                name, "names that leave at least one variable to simulate", tuple(items), _OWNER
+            )
         return tuple(items)
 
 
@@ -149,7 +164,8 @@ _CONSTRAINTS: dict[str, Any] = {
 }
 
 
-# --- the engine -----------------------------------------------------------------------------------
+# --- the engine ---
+
 
 @dataclass
 class _Variable:
@@ -179,9 +195,9 @@ class DirectSampler:
         Fraction of the TI scanned, from a random start in flat C order, before the best location
         seen is copied. In ``(0, 1]``.
     search_radius : float or sequence of float, optional
-        Semi-axes ``(rz, ry, rx)`` of the neighbourhood ellipsoid in cells; a pair is ``(ry, rx)`` and a
-        single number applies to every axis the TI varies along. Default: 16 cells (8 for a 3-D
-        TI), less where the TI is shorter.
+        Semi-axes ``(rz, ry, rx)`` of the neighbourhood ellipsoid in cells; a pair is
+        ``(ry, rx)`` and a single number applies to every axis the TI varies along. Default: 16
+        cells (8 for a 3-D TI), less where the TI is shorter.
     weights : float, sequence or mapping of float, optional
         Positive weight of each variable in the combined distance (default 1 each).
     lag_power : float, default 0
@@ -207,9 +223,19 @@ class DirectSampler:
     multiple-point geostatistical simulations. Water Resources Research 46, W11536.
     """
 
-    def __init__(self, training_image: Any, *, neighbors: int = 30, accept_distance: float = 0.05,
-                 scan_fraction: float = 0.3, search_radius: Any = None, weights: Any = None,
-                 lag_power: float = 0.0, kinds: Any = None, auxiliary: Sequence[str] = ()) -> None:
+    def __init__(
+        self,
+        training_image: Any,
+        *,
+        neighbors: int = 30,
+        accept_distance: float = 0.05,
+        scan_fraction: float = 0.3,
+        search_radius: Any = None,
+        weights: Any = None,
+        lag_power: float = 0.0,
+        kinds: Any = None,
+        auxiliary: Sequence[str] = (),
+    ) -> None:
         self.training_image = training_image
         self.neighbors = neighbors
         self.accept_distance = accept_distance
@@ -226,7 +252,9 @@ class DirectSampler:
     # -- validation and preparation (the one place) --
 
     def _params(self, names: list[str]) -> dict[str, Any]:
-        return {key: rule.check(getattr(self, key), key, names) for key, rule in _CONSTRAINTS.items()}
+        return {
+            key: rule.check(getattr(self, key), key, names) for key, rule in _CONSTRAINTS.items()
+        }
 
     def _prepare(self) -> tuple[list[_Variable], dict[str, Any], Template, Any]:
         key = (id(self.training_image), repr(self.kinds), repr(self.search_radius))
@@ -239,8 +267,12 @@ class DirectSampler:
         variables = [_variable(n, a, kinds.get(n)) for n, a in zip(names, arrays, strict=True)]
         shape = arrays[0].shape
         tpl = Template.ellipsoid(_radius(params["search_radius"], shape))
-        ti = _core.DirectTrainingImage(shape, [x.normalised for x in variables],
-                                       [_KINDS.index(x.kind) for x in variables], tpl.reach)
+        ti = _core.DirectTrainingImage(
+            shape,
+            [x.normalised for x in variables],
+            [_KINDS.index(x.kind) for x in variables],
+            tpl.reach,
+        )
         self._prepared = (key, variables, shape, tpl, ti)
         return variables, params, tpl, ti
 
@@ -260,10 +292,18 @@ class DirectSampler:
 
     # -- simulation --
 
-    def simulate(self, shape: Any, *, hard: Any = None, auxiliary: Mapping[str, Any] | None = None,
-                 seed: int = 0, threads: int | None = None, path: str = "random",
-                 return_source: bool = False,
-                 progress: Callable[[int, int], Any] | None = None) -> Any:
+    def simulate(
+        self,
+        shape: Any,
+        *,
+        hard: Any = None,
+        auxiliary: Mapping[str, Any] | None = None,
+        seed: int = 0,
+        threads: int | None = None,
+        path: str = "random",
+        return_source: bool = False,
+        progress: Callable[[int, int], Any] | None = None,
+    ) -> Any:
         """Simulate one realization.
 
         Parameters
@@ -311,9 +351,12 @@ class DirectSampler:
                 a = _grid_array(aux_map[var.name], f"auxiliary[{var.name!r}]", grid_shape, owner)
                 known = _known(a, var.kind)
                 if not known.all():
-                    raise v.fail(f"auxiliary[{var.name!r}]",
-                                 "informed at every grid node (an auxiliary variable is never simulated)",
-                                 f"{int((~known).sum())} unknown nodes", owner)
+                    raise v.fail(
+                        f"auxiliary[{var.name!r}]",
+                        "informed at every grid node (an auxiliary variable is never simulated)",
+                        f"{int((~known).sum())} unknown nodes",
+                        owner,
+                    )
                 state.append(_normalise(a, var, f"auxiliary[{var.name!r}]", owner))
             elif var.name in hard_map:
                 a = _grid_array(hard_map[var.name], _hard_name(var.name, single), grid_shape, owner)
@@ -329,15 +372,28 @@ class DirectSampler:
             raise v.fail_type("return_source", "a bool", return_source, owner)
         v.callback(progress, "progress", owner=owner)
         _, source, stats = _core.direct_simulate(
-            ti, grid_shape, [np.ascontiguousarray(s, dtype=np.float32).ravel() for s in state],
-            [n in aux_names for n in names], params["neighbors"], params["accept_distance"],
-            params["scan_fraction"], np.ascontiguousarray(tpl.offsets), w, params["lag_power"], pth,
-            sd, th, _MAX_BATCH, progress)
+            ti,
+            grid_shape,
+            [np.ascontiguousarray(s, dtype=np.float32).ravel() for s in state],
+            [n in aux_names for n in names],
+            params["neighbors"],
+            params["accept_distance"],
+            params["scan_fraction"],
+            np.ascontiguousarray(tpl.offsets),
+            w,
+            params["lag_power"],
+            pth,
+            sd,
+            th,
+            _MAX_BATCH,
+            progress,
+        )
         stats = dict(stats)
         # CPU time of the workers, so that other load on the machine does not count.
         busy = stats["cpu_seconds"] or stats["seconds"] * stats["threads"]
-        stats["ns_per_comparison"] = (1e9 * busy / stats["comparisons"] if stats["comparisons"]
-                                      else float("nan"))
+        stats["ns_per_comparison"] = (
+            1e9 * busy / stats["comparisons"] if stats["comparisons"] else float("nan")
+        )
         self.last_stats = stats
         out_shape = grid_shape[1:] if flat else grid_shape
         source = source.reshape(out_shape)
@@ -345,29 +401,43 @@ class DirectSampler:
         for var in variables:
             if var.name in aux_names:
                 continue
-            results[var.name] = _restore(var, source, hard_map.get(var.name), grid_shape).reshape(out_shape)
+            results[var.name] = _restore(var, source, hard_map.get(var.name), grid_shape).reshape(
+                out_shape
+            )
         value = results[names[0]] if single else results
         return (value, source) if return_source else value
 
 
-# --- helpers ---------------------------------------------------------------------------------------
+# --- helpers ---
+
 
 def _split_variables(training_image: Any) -> tuple[list[str], list[np.ndarray]]:
     if isinstance(training_image, Mapping):
         if not training_image:
-            raise v.fail("training_image", "a non-empty mapping of name to array", training_image, _OWNER)
+            raise v.fail(
+                "training_image", "a non-empty mapping of name to array", training_image, _OWNER
+            )
         names = list(training_image)
         for n in names:
             if not isinstance(n, str):
-                raise v.fail_type("training_image", "a mapping with str keys (variable names)", n, _OWNER)
+                raise v.fail_type(
+                    "training_image", "a mapping with str keys (variable names)", n, _OWNER
+                )
         if len(names) > 32:
-            raise v.fail("training_image", "at most 32 variables", f"{len(names)} variables", _OWNER)
-        arrays = [v.as_volume(training_image[n], f"training_image[{n!r}]", owner=_OWNER) for n in names]
+            raise v.fail(
+                "training_image", "at most 32 variables", f"{len(names)} variables", _OWNER
+            )
+        arrays = [
+            v.as_volume(training_image[n], f"training_image[{n!r}]", owner=_OWNER) for n in names
+        ]
         for n, a in zip(names, arrays, strict=True):
             if a.shape != arrays[0].shape:
-                raise v.fail(f"training_image[{n!r}]",
-                             f"an array of the shape of training_image[{names[0]!r}], {arrays[0].shape}",
-                             f"an array of shape {a.shape}", _OWNER)
+                raise v.fail(
+                    f"training_image[{n!r}]",
+                    f"an array of the shape of training_image[{names[0]!r}], {arrays[0].shape}",
+                    f"an array of shape {a.shape}",
+                    _OWNER,
+                )
         return names, arrays
     return ["value"], [v.as_volume(training_image, "training_image", owner=_OWNER)]
 
@@ -384,9 +454,15 @@ def _variable(name: str, array: np.ndarray, kind: str | None) -> _Variable:
         known = (x >= 0) & ~np.isnan(x)
         codes = x[known]
         if codes.size and (np.any(codes != np.floor(codes)) or codes.max() > _MAX_CODE):
-            raise v.fail(label, f"integer category codes in [0, {_MAX_CODE}] (negative = masked)",
-                         "non-integer or too large codes", _OWNER)
-        original = np.where(known, x, -1).astype(dt if not np.issubdtype(dt, np.floating) else np.int64)
+            raise v.fail(
+                label,
+                f"integer category codes in [0, {_MAX_CODE}] (negative = masked)",
+                "non-integer or too large codes",
+                _OWNER,
+            )
+        original = np.where(known, x, -1).astype(
+            dt if not np.issubdtype(dt, np.floating) else np.int64
+        )
         norm = np.where(known, x, -1.0).astype(np.float32)
         low, span = 0.0, 1.0
     else:
@@ -399,8 +475,12 @@ def _variable(name: str, array: np.ndarray, kind: str | None) -> _Variable:
         span = high - low if high > low else 1.0
         norm = ((x - low) / span).astype(np.float32)
     if not known.any():
-        raise v.fail(label, "an array with at least one informed value (not NaN, not negative for "
-                     "categories)", "an array with none", _OWNER)
+        raise v.fail(
+            label,
+            "an array with at least one informed value (not NaN, not negative for categories)",
+            "an array with none",
+            _OWNER,
+        )
     return _Variable(name, kind, original, norm, low, span)
 
 
@@ -414,8 +494,12 @@ def _radius(radius: tuple[float, ...] | None, shape: tuple[int, ...]) -> tuple[f
     else:
         out = tuple(radius)
     if max(out) < 1:
-        raise v.fail("search_radius", "a radius reaching at least one cell along an axis the training "
-                     "image varies along", radius, _OWNER)
+        raise v.fail(
+            "search_radius",
+            "a radius reaching at least one cell along an axis the training image varies along",
+            radius,
+            _OWNER,
+        )
     return out  # type: ignore[return-value]
 
 
@@ -423,12 +507,16 @@ def _hard_name(name: str, single: bool) -> str:
     return "hard" if single else f"hard[{name!r}]"
 
 
-def _hard_mapping(hard: Any, names: list[str], single: bool, aux: tuple[str, ...], owner: str) -> dict[str, Any]:
+def _hard_mapping(
+    hard: Any, names: list[str], single: bool, aux: tuple[str, ...], owner: str
+) -> dict[str, Any]:
     if hard is None:
         return {}
     if single:
         if isinstance(hard, Mapping):
-            raise v.fail_type("hard", "an array (the training image is a single array)", hard, owner)
+            raise v.fail_type(
+                "hard", "an array (the training image is a single array)", hard, owner
+            )
         return {names[0]: hard}
     if not isinstance(hard, Mapping):
         raise v.fail_type("hard", "a mapping of variable name to array", hard, owner)
@@ -436,7 +524,12 @@ def _hard_mapping(hard: Any, names: list[str], single: bool, aux: tuple[str, ...
         if k not in names:
             raise v.fail("hard", f"a mapping over the training-image variables {names}", k, owner)
         if k in aux:
-            raise v.fail("hard", "a mapping without auxiliary variables (give those in `auxiliary`)", k, owner)
+            raise v.fail(
+                "hard",
+                "a mapping without auxiliary variables (give those in `auxiliary`)",
+                k,
+                owner,
+            )
     return dict(hard)
 
 
@@ -447,12 +540,21 @@ def _auxiliary_mapping(auxiliary: Any, declared: tuple[str, ...], owner: str) ->
         raise v.fail_type("auxiliary", "a mapping of variable name to array", auxiliary, owner)
     for k in auxiliary:
         if k not in declared:
-            raise v.fail("auxiliary", f"a mapping over the declared auxiliary variables {list(declared)} "
-                         "(declare it with DirectSampler(..., auxiliary=[...]))", k, owner)
+            raise v.fail(
+                "auxiliary",
+                f"a mapping over the declared auxiliary variables {list(declared)} "
+                "(declare it with DirectSampler(..., auxiliary=[...]))",
+                k,
+                owner,
+            )
     for k in declared:
         if k not in auxiliary:
-            raise v.fail("auxiliary", f"a mapping giving the declared auxiliary variable {k!r} on the grid",
-                         f"no array for {k!r}", owner)
+            raise v.fail(
+                "auxiliary",
+                f"a mapping giving the declared auxiliary variable {k!r} on the grid",
+                f"no array for {k!r}",
+                owner,
+            )
     return dict(auxiliary)
 
 
@@ -462,8 +564,12 @@ def _grid_array(a: Any, name: str, shape: tuple[int, int, int], owner: str) -> n
         raise v.fail_type(name, "a numeric array", arr, owner)
     view = arr[np.newaxis] if arr.ndim == 2 else arr
     if view.shape != shape:
-        raise v.fail(name, f"a 3-D array of shape {shape} (or {shape[1:]} when nz = 1)",
-                     f"an array of shape {arr.shape}", owner)
+        raise v.fail(
+            name,
+            f"a 3-D array of shape {shape} (or {shape[1:]} when nz = 1)",
+            f"an array of shape {arr.shape}",
+            owner,
+        )
     return view
 
 
@@ -478,16 +584,21 @@ def _normalise(a: np.ndarray, var: _Variable, name: str, owner: str) -> np.ndarr
         known = (x >= 0) & ~np.isnan(x)
         codes = x[known]
         if codes.size and (np.any(codes != np.floor(codes)) or codes.max() > _MAX_CODE):
-            raise v.fail(name, f"integer category codes in [0, {_MAX_CODE}] (negative = unknown)",
-                         "non-integer or too large codes", owner)
+            raise v.fail(
+                name,
+                f"integer category codes in [0, {_MAX_CODE}] (negative = unknown)",
+                "non-integer or too large codes",
+                owner,
+            )
         return np.where(known, x, np.nan).astype(np.float32)
     if np.isinf(x).any():
         raise v.fail(name, "finite values or NaN (unknown)", "an array holding inf", owner)
     return ((x - var.low) / var.span).astype(np.float32)
 
 
-def _restore(var: _Variable, source: np.ndarray, hard: Any,
-             shape: tuple[int, int, int]) -> np.ndarray:
+def _restore(
+    var: _Variable, source: np.ndarray, hard: Any, shape: tuple[int, int, int]
+) -> np.ndarray:
     """Values in the TI's own units: hard data as given, simulated nodes copied from the TI."""
     src = source.ravel()
     copied = src >= 0

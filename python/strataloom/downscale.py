@@ -37,18 +37,33 @@ def block_means(fine: Any, factor: Any) -> np.ndarray:
     a = np.asarray(fine, dtype=np.float64)
     f = _factor(factor, a.ndim, "factor", "block_means")
     if any(n % k for n, k in zip(a.shape, f, strict=True)):
-        raise v.fail("fine", f"an array whose shape is a multiple of the factor {f}",
-                     f"an array of shape {a.shape}", "block_means")
+        raise v.fail(
+            "fine",
+            f"an array whose shape is a multiple of the factor {f}",
+            f"an array of shape {a.shape}",
+            "block_means",
+        )
     split = []
     for n, k in zip(a.shape, f, strict=True):
         split += [n // k, k]
     return a.reshape(split).mean(axis=tuple(range(1, 2 * a.ndim, 2)))
 
 
-def downscale(coarse_train: Any, fine_train: Any, coarse_target: Any, *, realizations: int = 1,
-              neighbors: int = 24, accept_distance: float = 0.03, scan_fraction: float = 0.5,
-              search_radius: Any = None, coarse_weight: float = 1.0, match_block_means: bool = False,
-              seed: int = 0, threads: int | None = None) -> np.ndarray:
+def downscale(
+    coarse_train: Any,
+    fine_train: Any,
+    coarse_target: Any,
+    *,
+    realizations: int = 1,
+    neighbors: int = 24,
+    accept_distance: float = 0.03,
+    scan_fraction: float = 0.5,
+    search_radius: Any = None,
+    coarse_weight: float = 1.0,
+    match_block_means: bool = False,
+    seed: int = 0,
+    threads: int | None = None,
+) -> np.ndarray:
     """Fine-scale realizations whose block means follow a coarse field.
 
     Parameters
@@ -79,28 +94,47 @@ def downscale(coarse_train: Any, fine_train: Any, coarse_target: Any, *, realiza
     ft = _float_array(fine_train, "fine_train")
     cg = _float_array(coarse_target, "coarse_target")
     if ct.ndim != ft.ndim or cg.ndim != ct.ndim:
-        raise v.fail("coarse_target", f"an array with {ct.ndim} axes like coarse_train and fine_train",
-                     f"an array of shape {cg.shape}", _OWNER)
+        raise v.fail(
+            "coarse_target",
+            f"an array with {ct.ndim} axes like coarse_train and fine_train",
+            f"an array of shape {cg.shape}",
+            _OWNER,
+        )
     if any(f % c for f, c in zip(ft.shape, ct.shape, strict=True)):
-        raise v.fail("fine_train", f"an array whose shape is a multiple of coarse_train's {ct.shape}",
-                     f"an array of shape {ft.shape}", _OWNER)
+        raise v.fail(
+            "fine_train",
+            f"an array whose shape is a multiple of coarse_train's {ct.shape}",
+            f"an array of shape {ft.shape}",
+            _OWNER,
+        )
     factor = tuple(f // c for f, c in zip(ft.shape, ct.shape, strict=True))
     if np.isnan(cg).any():
-        raise v.fail("coarse_target", "fully informed (no NaN)", f"{int(np.isnan(cg).sum())} NaN cells", _OWNER)
+        raise v.fail(
+            "coarse_target",
+            "fully informed (no NaN)",
+            f"{int(np.isnan(cg).sum())} NaN cells",
+            _OWNER,
+        )
     n = v.integer(realizations, "realizations", low=1, high=100000, owner=_OWNER)
     cw = v.real(coarse_weight, "coarse_weight", low=0, low_open=True, high=1e6, owner=_OWNER)
     if not isinstance(match_block_means, bool):
         raise v.fail_type("match_block_means", "a bool", match_block_means, _OWNER)
     sd = v.seed(seed, owner=_OWNER)
-    sampler = DirectSampler({"fine": ft, "coarse": _repeat(ct, factor)}, neighbors=neighbors,
-                            accept_distance=accept_distance, scan_fraction=scan_fraction,
-                            search_radius=search_radius, weights={"fine": 1.0, "coarse": cw},
-                            auxiliary=["coarse"])
+    sampler = DirectSampler(
+        {"fine": ft, "coarse": _repeat(ct, factor)},
+        neighbors=neighbors,
+        accept_distance=accept_distance,
+        scan_fraction=scan_fraction,
+        search_radius=search_radius,
+        weights={"fine": 1.0, "coarse": cw},
+        auxiliary=["coarse"],
+    )
     coarse_fine = _repeat(cg, factor)
     out = np.empty((n, *coarse_fine.shape))
     for r in range(n):
-        sim = sampler.simulate(coarse_fine.shape, auxiliary={"coarse": coarse_fine}, seed=sd + r,
-                               threads=threads)["fine"]
+        sim = sampler.simulate(
+            coarse_fine.shape, auxiliary={"coarse": coarse_fine}, seed=sd + r, threads=threads
+        )["fine"]
         if match_block_means:
             sim = sim + _repeat(cg - block_means(sim, factor), factor)
         out[r] = sim
