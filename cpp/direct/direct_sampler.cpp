@@ -42,7 +42,7 @@ double thread_cpu_seconds() noexcept {
 
 // Lags evaluated between two checks of the early exit.
 constexpr int kChunk = 8;
-// Extra floats after the padded arrays, so a block that starts at the last real cell stays inside.
+// Extra slots beyond each end of the stored arrays, on top of the lag reach, for the last block.
 constexpr std::int64_t kTail = 2 * kLanes;
 
 std::string str(std::int64_t v) { return std::to_string(v); }
@@ -56,47 +56,74 @@ TrainingImage::TrainingImage(const Ijk& shape, const std::vector<const float*>& 
           "must hold one kind per variable and at least one variable.");
   require(static_cast<int>(values.size()) <= kMaxVariables, "training_image",
           "must hold at most " + str(kMaxVariables) + " variables.");
-  double cells = 1, padded = 1;
+  double padded = 1;
   for (int a = 0; a < 3; ++a) {
     require(shape[a] >= 1, "training_image", "must have a positive size along every axis.");
     require(reach[a] >= 0 && reach[a] <= 4096, "search_radius", "must hold radii in [0, 4096] cells.");
     padded_[a] = shape[a] + 2 * Index{reach[a]};
-    cells *= static_cast<double>(shape[a]);
     padded *= static_cast<double>(padded_[a]);
   }
-  require(padded <= 4e9, "training_image", "is too large once padded by the search radius (over 4e9 cells).");
-  const auto total = static_cast<std::size_t>(padded_[0] * padded_[1] * padded_[2] + kTail);
-  informed_.assign(total, 0);
+  require(padded <= 2e9, "training_image", "is too large once padded by the search radius (over 2e9 cells).");
+  const std::int64_t total = padded_[0] * padded_[1] * padded_[2];
+  // Stride: one neighbourhood width along the fastest axis the lags move along.
+  const std::int64_t axis_stride[3] = {padded_[1] * padded_[2], padded_[2], 1};
+  stride_ = 1;
+  for (int a = 2; a >= 0; --a)
+    if (reach[a] > 0) {
+      stride_ = (2 * std::int64_t{reach[a]} + 1) * axis_stride[a];
+      break;
+    }
+  stride_ = std::min(stride_, total);
+  phase_length_ = (total + stride_ - 1) / stride_;
+  const std::int64_t slots = stride_ * phase_length_;
+  const std::int64_t reach_delta = padded_delta(reach);
+  margin_ = kTail + reach_delta / stride_ + 2;
+  const auto stored = static_cast<std::size_t>(slots + 2 * margin_);
+  informed_.assign(stored, 0);
   values_.resize(values.size());
   const Index n = size();
   for (std::size_t v = 0; v < values.size(); ++v) {
     require(values[v] != nullptr, "training_image", "is missing the data of a variable.");
     const bool cat = kinds[v] == Kind::categorical;
     auto& out = values_[v];
-    out.assign(total, cat ? kMaskedCategory : kMaskedContinuous);
+    out.assign(stored, cat ? kMaskedCategory : kMaskedContinuous);
     const float* in = values[v];
     for (Index i = 0; i < n; ++i) {
       const float x = in[i];
       const bool ok = cat ? (x >= 0.0f) : !std::isnan(x);  // NaN >= 0 is false
       if (!ok) continue;
       require(std::isfinite(x), "training_image", "must hold finite values or NaN (masked).");
-      const auto p = static_cast<std::size_t>(padded_index(i));
-      out[p] = x;
-      informed_[p] |= std::uint32_t{1} << v;
+      const auto e = static_cast<std::size_t>(slot(padded_index(i)) + margin_);
+      out[e] = x;
+      informed_[e] |= std::uint32_t{1} << v;
     }
   }
+  std::vector<std::uint8_t> real(static_cast<std::size_t>(slots), 0);
+  for (Index i = 0; i < n; ++i) real[static_cast<std::size_t>(slot(padded_index(i)))] = 1;
+  real_before_.assign(static_cast<std::size_t>(slots + 1), 0);
+  for (std::int64_t e = 0; e < slots; ++e)
+    real_before_[static_cast<std::size_t>(e + 1)] = real_before_[static_cast<std::size_t>(e)] + real[static_cast<std::size_t>(e)];
 }
 
 std::int64_t TrainingImage::padded_index(Index i) const noexcept {
   const Index x = i % shape_[2];
   const Index r = i / shape_[2];
-  return padded_row(r) + x;
+  return ((r / shape_[1] + reach_[0]) * padded_[1] + (r % shape_[1] + reach_[1])) * padded_[2] + reach_[2] + x;
+}
+
+Index TrainingImage::real_index(std::int64_t e) const noexcept {
+  const std::int64_t p = position(e);
+  const Index x = p % padded_[2] - reach_[2];
+  const Index y = (p / padded_[2]) % padded_[1] - reach_[1];
+  const Index z = p / (padded_[2] * padded_[1]) - reach_[0];
+  if (x < 0 || x >= shape_[2] || y < 0 || y >= shape_[1] || z < 0 || z >= shape_[0]) return -1;
+  return (z * shape_[1] + y) * shape_[2] + x;
 }
 
 Index TrainingImage::count_informed(std::uint32_t need) const noexcept {
   Index count = 0;
   for (Index i = 0; i < size(); ++i)
-    if ((informed_[static_cast<std::size_t>(padded_index(i))] & need) == need) ++count;
+    if ((informed()[slot(padded_index(i))] & need) == need) ++count;
   return count;
 }
 
@@ -279,7 +306,9 @@ struct alignas(64) Worker {
 struct Look {
   Offset lag;
   std::int64_t grid_delta;
-  std::int64_t ti_delta;
+  std::int64_t ti_delta;  // padded offset = q * stride + r, 0 <= r < stride
+  std::int64_t q;
+  std::int64_t r;
   float weight;
 };
 
@@ -293,7 +322,9 @@ class Simulation {
     for (const Offset& o : params.search) {
       const double h = std::sqrt(double(o[0]) * o[0] + double(o[1]) * o[1] + double(o[2]) * o[2]);
       const auto w = static_cast<float>(std::pow(1.0 + h, -params.lag_power));
-      looks_.push_back({o, (std::int64_t{o[0]} * grid.shape()[1] + o[1]) * grid.shape()[2] + o[2], ti.padded_delta(o), w});
+      const std::int64_t d = ti.padded_delta(o), st = ti.stride();
+      const std::int64_t q = d >= 0 ? d / st : -((-d + st - 1) / st);
+      looks_.push_back({o, (std::int64_t{o[0]} * grid.shape()[1] + o[1]) * grid.shape()[2] + o[2], d, q, d - q * st, w});
     }
     const Index n = ti.size();
     limit_ = std::clamp<Index>(static_cast<Index>(std::ceil(params.scan_fraction * static_cast<double>(n))), 1, n);
@@ -306,6 +337,8 @@ class Simulation {
     for (auto& l : w.lags) {
       const auto cap = static_cast<std::size_t>(params_.neighbors) + 1;
       l.delta.resize(cap);
+      l.q.resize(cap);
+      l.r.resize(cap);
       l.value.resize(cap);
       l.weight.resize(cap);
     }
@@ -331,9 +364,9 @@ class Simulation {
     float dist = 0;
     const bool accepted = scan(c, need, w, src, dist);
     if (src < 0) throw ParameterError("training_image", "has no cell informed in every variable a node needs.");
-    const std::int64_t p = ti_.padded_index(src);
+    const std::int64_t e = ti_.slot(ti_.padded_index(src));
     for (int v = 0; v < nvar_; ++v)
-      if (need & (std::uint32_t{1} << v)) state_[static_cast<std::size_t>(v)][c] = ti_.data(v)[p];
+      if (need & (std::uint32_t{1} << v)) state_[static_cast<std::size_t>(v)][c] = ti_.data(v)[e];
     source_[c] = src;
     w.stats.cpu_seconds += thread_cpu_seconds() - t0;
     ++w.stats.nodes;
@@ -357,6 +390,8 @@ class Simulation {
       const float x = state_[static_cast<std::size_t>(v)][c];
       if (!std::isnan(x)) {
         l.delta[0] = 0;
+        l.q[0] = 0;
+        l.r[0] = 0;
         l.value[0] = x;
         l.weight[0] = 1.0f;
         l.size = 1;
@@ -378,6 +413,8 @@ class Simulation {
         if (std::isnan(val)) continue;
         const auto k = static_cast<std::size_t>(l.size++);
         l.delta[k] = look.ti_delta;
+        l.q[k] = look.q;
+        l.r[k] = look.r;
         l.value[k] = val;
         l.weight[k] = look.weight;
         l.weight_sum += look.weight;
@@ -403,52 +440,66 @@ class Simulation {
   }
 
   // Scans the TI from the node's random start; returns true when a candidate was accepted.
+  // Sets the slot offsets of every lag for scan phase `phase`.
+  static void enter_phase(const TrainingImage& ti, Worker& w, std::int64_t phase) {
+    for (auto& l : w.lags)
+      for (int k = 0; k < l.size; ++k)
+        l.delta[static_cast<std::size_t>(k)] =
+            ti.phase_delta(l.q[static_cast<std::size_t>(k)], l.r[static_cast<std::size_t>(k)], phase);
+  }
+
   bool scan(Index c, std::uint32_t need, Worker& w, Index& src, float& dist) const {
     const Index n = ti_.size();
-    const Index nx = ti_.shape()[2];
+    const std::int64_t s = ti_.stride(), K = ti_.phase_length();
+    const std::uint32_t* before = ti_.real_before();
     w.view.need = need;
     float best = std::numeric_limits<float>::infinity();
     Index best_src = -1;
-    Index q = detail::scan_start(params_.seed, c, n);
+    const std::int64_t e0 = ti_.slot(ti_.padded_index(detail::scan_start(params_.seed, c, n)));
+    std::int64_t phase = e0 / K, k = e0 % K;
+    enter_phase(ti_, w, phase);
     Index scanned = 0;
     float d[kLanes];
     Stats& st = w.stats;
-    Index row = q / nx, x = q % nx;
-    std::int64_t row_start = ti_.padded_row(row);
-    const Index rows = n / nx;
     while (scanned < n) {
+      const std::int64_t e = phase * K + k;
+      int lanes = static_cast<int>(std::min<std::int64_t>(kLanes, K - k));
+      Index real = before[e + lanes] - before[e];
       const Index left = scanned < limit_ ? limit_ - scanned : n - scanned;
-      const int lanes = static_cast<int>(std::min<Index>({kLanes, nx - x, left}));
-      st.candidates += lanes;
-      if (detail::evaluate_block(w.view, row_start + x, lanes, best, d, st.comparisons)) {
-        const Index q0 = row * nx + x;
+      if (real > left) {  // stop exactly at the limit
+        lanes = 0;
+        while (static_cast<Index>(before[e + lanes] - before[e]) < left) ++lanes;
+        real = left;
+      }
+      st.candidates += real;
+      if (real > 0 && detail::evaluate_block(w.view, e, lanes, best, d, st.comparisons)) {
         if (scanned >= limit_) {
           // Past the limit with nothing usable seen: the first informed candidate is taken.
           for (int j = 0; j < lanes; ++j)
             if (d[j] < std::numeric_limits<float>::infinity()) {
-              src = q0 + j;
+              src = ti_.real_index(e + j);
               dist = d[j];
               return d[j] <= accept_;
             }
         }
         for (int j = 0; j < lanes; ++j) {
           if (d[j] <= accept_) {
-            src = q0 + j;
+            src = ti_.real_index(e + j);
             dist = d[j];
             return true;
           }
           if (d[j] < best) {
             best = d[j];
-            best_src = q0 + j;
+            best_src = ti_.real_index(e + j);
           }
         }
       }
-      scanned += lanes;
-      x += lanes;
-      if (x == nx) {
-        x = 0;
-        if (++row == rows) row = 0;
-        row_start = ti_.padded_row(row);
+      scanned += real;
+      k += lanes;
+      if (k == K) {
+        k = 0;
+        if (++phase == s) phase = 0;
+        enter_phase(ti_, w, phase);
       }
       if (scanned >= limit_ && best_src >= 0) break;
     }

@@ -83,6 +83,17 @@ double brute_distance(const Ijk& tshape, const std::vector<std::vector<float>>& 
 
 }  // namespace
 
+// Lags of a LagSet for a block in scan phase `phase`: the slot offsets the kernel reads.
+static void set_phase(const TrainingImage& ti, sl::direct::detail::LagSet& l, const std::vector<Offset>& lags,
+                      std::int64_t phase) {
+  l.delta.clear();
+  for (const Offset& o : lags) {
+    const std::int64_t d = ti.padded_delta(o), s = ti.stride();
+    const std::int64_t q = d >= 0 ? d / s : -((-d + s - 1) / s);
+    l.delta.push_back(ti.phase_delta(q, d - q * s, phase));
+  }
+}
+
 SL_TEST(direct_block_kernel_matches_a_scalar_loop) {
   const Ijk shape{3, 9, 40};
   const auto a = field(shape, 11, 0);
@@ -91,11 +102,13 @@ SL_TEST(direct_block_kernel_matches_a_scalar_loop) {
   b[5] = -1;                                     // a masked category
   const Offset reach{1, 2, 3};
   const TrainingImage ti(shape, {a.data(), b.data()}, {Kind::continuous, Kind::categorical}, reach);
+  SL_CHECK(ti.stride() == 7);
   const auto t = Template::box({1, 2, 3});
+  std::vector<Offset> lags;
   sl::direct::detail::LagSet lc, lk;
   for (std::size_t k = 0; k < 21; ++k) {
+    lags.push_back(t.offsets()[k * 3]);
     for (auto* l : {&lc, &lk}) {
-      l->delta.push_back(ti.padded_delta(t.offsets()[k * 3]));
       l->weight.push_back(0.5f + unit(97, k));
       l->weight_sum += l->weight.back();
     }
@@ -116,27 +129,38 @@ SL_TEST(direct_block_kernel_matches_a_scalar_loop) {
   view.inv_share = {4.0f, 1.0f / 0.75f};
   view.sum = {static_cast<float>(lc.weight_sum), static_cast<float>(lk.weight_sum)};
   view.categorical = {false, true};
-  for (const Index cell : {Index{0}, Index{41}, Index{3 * 9 * 40 - 16}}) {
-    const std::int64_t p = ti.padded_index(cell);
+  int real_lanes = 0;
+  for (const Index cell : {Index{0}, Index{41}, Index{3 * 9 * 40 - 1}, Index{200}}) {
+    const std::int64_t e = ti.slot(ti.padded_index(cell));
+    SL_CHECK(ti.real_index(e) == cell);
+    const std::int64_t phase = e / ti.phase_length();
+    set_phase(ti, lc, lags, phase);
+    set_phase(ti, lk, lags, phase);
+    const int lanes = static_cast<int>(std::min<std::int64_t>(11, ti.phase_length() - e % ti.phase_length()));
     float out[kLanes];
     std::int64_t comparisons = 0;
-    SL_CHECK(sl::direct::detail::evaluate_block(view, p, 11, std::numeric_limits<float>::infinity(), out, comparisons));
-    SL_CHECK(comparisons == 11 * (21 + 13));
+    SL_CHECK(sl::direct::detail::evaluate_block(view, e, lanes, std::numeric_limits<float>::infinity(), out, comparisons));
+    SL_CHECK(comparisons == lanes * (21 + 13));
     double lowest = 2;
     for (int j = 0; j < kLanes; ++j) {
-      const bool masked = (ti.informed()[p + j] & 3u) != 3u;
-      if (j >= 11 || masked) {
+      const Index real = j < lanes ? ti.real_index(e + j) : -1;
+      const bool masked = real < 0 || (ti.informed()[e + j] & 3u) != 3u;
+      if (masked) {
         SL_CHECK(std::isinf(out[j]));
         continue;
       }
+      ++real_lanes;
+      // Lane j is the padded position of slot e + j; its lags are read at position + offset.
+      const std::int64_t p = ti.position(e + j);
+      SL_CHECK(p == ti.padded_index(real));
       double sc = 0, sk = 0;
       for (int k = 0; k < 21; ++k) {
-        const float x = ti.data(0)[p + j + lc.delta[static_cast<std::size_t>(k)]];
+        const float x = ti.value_at(0, p + ti.padded_delta(lags[static_cast<std::size_t>(k)]));
         const double d = double(x) - lc.value[static_cast<std::size_t>(k)];
         sc += lc.weight[static_cast<std::size_t>(k)] * std::min(1.0, d * d);  // outside cells hold 1e4: d*d > 1
       }
       for (int k = 0; k < 13; ++k) {
-        const float x = ti.data(1)[p + j + lk.delta[static_cast<std::size_t>(k)]];
+        const float x = ti.value_at(1, p + ti.padded_delta(lags[static_cast<std::size_t>(k)]));
         sk += lk.weight[static_cast<std::size_t>(k)] * (x != lk.value[static_cast<std::size_t>(k)] ? 1.0 : 0.0);
       }
       const double expect = 0.25 * std::sqrt(sc / lc.weight_sum) + 0.75 * sk / lk.weight_sum;
@@ -145,10 +169,11 @@ SL_TEST(direct_block_kernel_matches_a_scalar_loop) {
     }
     // A best below every lane's distance abandons the block, one just above it does not.
     comparisons = 0;
-    SL_CHECK(!sl::direct::detail::evaluate_block(view, p, 11, static_cast<float>(lowest) * 0.5f, out, comparisons));
-    SL_CHECK(comparisons < 11 * (21 + 13));
-    SL_CHECK(sl::direct::detail::evaluate_block(view, p, 11, static_cast<float>(lowest) * 1.01f + 1e-6f, out, comparisons));
+    SL_CHECK(!sl::direct::detail::evaluate_block(view, e, lanes, static_cast<float>(lowest) * 0.5f, out, comparisons));
+    SL_CHECK(comparisons < lanes * (21 + 13));
+    SL_CHECK(sl::direct::detail::evaluate_block(view, e, lanes, static_cast<float>(lowest) * 1.01f + 1e-6f, out, comparisons));
   }
+  SL_CHECK(real_lanes >= 20);
 }
 
 SL_TEST(direct_padding_marks_outside_cells_as_masked) {
@@ -157,11 +182,13 @@ SL_TEST(direct_padding_marks_outside_cells_as_masked) {
   a[7] = std::numeric_limits<float>::quiet_NaN();
   const TrainingImage ti(shape, {a.data()}, {Kind::continuous}, {0, 2, 2});
   SL_CHECK(ti.count_informed(1) == 19);
-  const float* d = ti.data(0);
-  SL_CHECK(d[ti.padded_index(0)] == 0.25f);
-  SL_CHECK(d[ti.padded_index(0) + ti.padded_delta({0, 0, -1})] == kMaskedContinuous);
-  SL_CHECK(d[ti.padded_index(7)] == kMaskedContinuous);
-  SL_CHECK((ti.informed()[ti.padded_index(7)] & 1u) == 0);
+  SL_CHECK(ti.value_at(0, ti.padded_index(0)) == 0.25f);
+  SL_CHECK(ti.value_at(0, ti.padded_index(0) + ti.padded_delta({0, 0, -1})) == kMaskedContinuous);
+  SL_CHECK(ti.value_at(0, ti.padded_index(7)) == kMaskedContinuous);
+  SL_CHECK((ti.informed()[ti.slot(ti.padded_index(7))] & 1u) == 0);
+  // every real cell has one slot, and the slots visit the cells at the stride (5 = 2 * 2 + 1)
+  SL_CHECK(ti.stride() == 5 && ti.real_before()[ti.stride() * ti.phase_length()] == 20);
+  SL_CHECK(ti.position(ti.slot(ti.padded_index(3)) + 1) == ti.padded_index(3) + 5);
 }
 
 // Isolated unknown nodes (farther apart than the search reach) see only hard data, so each one's
@@ -199,9 +226,18 @@ SL_TEST(direct_scan_takes_the_first_best_candidate) {
     for (std::size_t i = 0; i < unknown.size(); ++i) {
       const Index c = unknown[i];
       const Index n = 14 * 17;
-      Index q = sl::direct::detail::scan_start(0, c, n), expect = -1;
+      // Scan order: the real cells by slot (strided order), from the node's start cell on.
+      std::vector<Index> order(static_cast<std::size_t>(n));
+      for (Index i = 0; i < n; ++i) order[static_cast<std::size_t>(i)] = i;
+      std::sort(order.begin(), order.end(), [&](Index u, Index v) {
+        return img.slot(img.padded_index(u)) < img.slot(img.padded_index(v));
+      });
+      const Index first = sl::direct::detail::scan_start(0, c, n);
+      const auto at = std::find(order.begin(), order.end(), first) - order.begin();
+      Index expect = -1;
       double best = 2;
-      for (Index s = 0; s < n; ++s, q = (q + 1) % n) {
+      for (Index s = 0; s < n; ++s) {
+        const Index q = order[static_cast<std::size_t>((at + s) % n)];
         const bool need_cat = i % 2 == 1;
         if (std::isnan(ti[0][static_cast<std::size_t>(q)]) || (need_cat && ti[1][static_cast<std::size_t>(q)] < 0)) continue;
         const double d = brute_distance(tshape, ti, kinds, grid, before, c, q, t, 6);

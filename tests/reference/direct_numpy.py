@@ -13,9 +13,11 @@ Rules (see cpp/direct/direct_sampler.hpp):
   keeping informed grid cells, n at most;
 * distances: continuous = sqrt(weighted mean of min(diff**2, 1)), categorical = weighted mismatch
   fraction; lags outside the TI or on masked cells count 1; variables combined by their weights;
-* scan: from floor(u * N), u = `uniform_draws(seed, 0, [cell], stream=3)`, in flat order with
-  wrap-around; first candidate <= accept_distance, else the first best of the first
-  ceil(scan_fraction * N); with nothing usable there, the first usable candidate after it.
+* scan: from cell floor(u * N), u = `uniform_draws(seed, 0, [cell], stream=3)`, through the TI in
+  the strided order (padded positions sorted by (position mod s, position div s), s one
+  neighbourhood width along the fastest axis with a non-zero reach) with wrap-around; first
+  candidate <= accept_distance, else the first best of the first ceil(scan_fraction * N); with
+  nothing usable there, the first usable candidate after it.
 """
 
 from __future__ import annotations
@@ -84,6 +86,21 @@ def simulate_reference(
     tz, ty, tx = np.unravel_index(np.arange(n_ti), tshape)
     ti_pos = ((tz + reach[0]) * pshape[1] + ty + reach[1]) * pshape[2] + tx + reach[2]
     lag_delta = (offsets[:, 0] * pshape[1] + offsets[:, 1]) * pshape[2] + offsets[:, 2]
+    # Scan order: padded positions at the stride of one neighbourhood width along the fastest axis
+    # with a non-zero reach, phase after phase (the engine's transposed layout).
+    total = int(np.prod(pshape))
+    axis_stride = (pshape[1] * pshape[2], pshape[2], 1)
+    stride = 1
+    for a in (2, 1, 0):
+        if reach[a] > 0:
+            stride = (2 * int(reach[a]) + 1) * axis_stride[a]
+            break
+    stride = min(stride, total)
+    per_phase = -(-total // stride)
+    slot = (ti_pos % stride) * per_phase + ti_pos // stride
+    scan_order = np.argsort(slot, kind="stable")
+    rank = np.empty(n_ti, dtype=np.int64)
+    rank[scan_order] = np.arange(n_ti)
     lag_weight = (1.0 + np.sqrt((offsets.astype(np.float64) ** 2).sum(axis=1))) ** -lag_power
     limit = min(max(math.ceil(scan_fraction * n_ti), 1), n_ti)
 
@@ -150,7 +167,7 @@ def simulate_reference(
         best, best_q = np.inf, -1
         scanned = 0
         while scanned < limit and chosen < 0:
-            q = (start + scanned + np.arange(min(chunk, limit - scanned))) % n_ti
+            q = scan_order[(rank[start] + scanned + np.arange(min(chunk, limit - scanned))) % n_ti]
             dist = distances(q)
             hit = np.flatnonzero(dist <= accept_distance)
             if hit.size:
@@ -163,7 +180,7 @@ def simulate_reference(
         if chosen < 0:
             chosen = best_q
         while chosen < 0 and scanned < n_ti:
-            q = (start + scanned + np.arange(min(chunk, n_ti - scanned))) % n_ti
+            q = scan_order[(rank[start] + scanned + np.arange(min(chunk, n_ti - scanned))) % n_ti]
             usable = np.flatnonzero(np.isfinite(distances(q)))
             if usable.size:
                 chosen = int(q[usable[0]])
