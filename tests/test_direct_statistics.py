@@ -110,9 +110,9 @@ LAGS = [(axis, h) for axis in (0, 1) for h in (1, 2, 4)]
 def test_texture_synthesis_on_scikit_image_textures(name):
     # Reference images bundled with scikit-image (skimage.data.brick / grass / gravel, shipped in
     # the wheel, no download). Histogram: two-sample Kolmogorov-Smirnov statistic
-    # (scipy.stats.ks_2samp) at most 0.1. Variogram along both axes at lags 1, 2, 4: relative to the TI's, within the range
-    # spanned by 300 random TI windows of the simulation's size (the TI's own sampling variability),
-    # widened by 0.1 (tolerances chosen by us from that spread).
+    # (scipy.stats.ks_2samp) at most 0.1. Variogram along both axes at lags 1, 2, 4: relative to
+    # the TI's, within the range spanned by 300 random TI windows of the simulation's size (the
+    # TI's own sampling variability), widened by 0.1 (tolerances chosen by us from that spread).
     data = pytest.importorskip("skimage.data")
     ti = getattr(data, name)()[:256, :256].astype(np.float64)
     ds = sl.DirectSampler(ti, neighbors=8, accept_distance=0.03, scan_fraction=0.3)
