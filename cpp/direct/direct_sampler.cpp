@@ -41,7 +41,7 @@ double thread_cpu_seconds() noexcept {
 }
 
 // Lags evaluated between two checks of the early exit.
-constexpr int kChunk = 8;
+constexpr int kChunk = 12;
 // Extra slots beyond each end of the stored arrays, on top of the lag reach, for the last block.
 constexpr std::int64_t kTail = 2 * kLanes;
 

@@ -1,0 +1,158 @@
+"""Side-by-side speed comparisons against reference implementations, with the targets.
+
+Usage: ``python benchmarks/compare.py [--only NAME ...] [--quick]``
+
+Each comparison is a function registered under a name with `@comparison("name")`; it yields rows
+``(case, ours_seconds, reference_seconds, ratio, target)`` and all rows are printed in one table.
+Add a section by writing another registered function. Timings are wall-clock on whatever machine
+runs this; on a shared machine other work inflates them (the direct-sampler rows also print the
+engine's own CPU-time counters).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from collections.abc import Callable, Iterable, Iterator
+from pathlib import Path
+
+import numpy as np
+
+Row = tuple[str, float, float, float, str]
+COMPARISONS: dict[str, Callable[[argparse.Namespace], Iterable[Row]]] = {}
+
+ROOT = Path(__file__).resolve().parent.parent
+if str(ROOT / "tests") not in sys.path:
+    sys.path.insert(0, str(ROOT / "tests"))  # the NumPy references live in tests/reference
+
+
+def comparison(
+    name: str,
+) -> Callable[
+    [Callable[[argparse.Namespace], Iterable[Row]]], Callable[[argparse.Namespace], Iterable[Row]]
+]:
+    """Register a comparison under `name`."""
+
+    def register(fn: Callable[[argparse.Namespace], Iterable[Row]]):
+        COMPARISONS[name] = fn
+        return fn
+
+    return register
+
+
+def _field(shape: tuple[int, ...], sigma: float, seed: int) -> np.ndarray:
+    # Invented data: a Gaussian random field (white noise smoothed by a Gaussian kernel).
+    from scipy.ndimage import gaussian_filter
+
+    return gaussian_filter(np.random.default_rng(seed).standard_normal(shape), sigma, mode="wrap")
+
+
+@comparison("direct")
+def direct(args: argparse.Namespace) -> Iterator[Row]:
+    """Direct sampler: versus the vectorised NumPy implementation, ns/comparison, 3-D threads."""
+    import strataloom as sl
+    from reference.direct_numpy import simulate_reference
+
+    # 1. Same search, 2-D continuous, engine vs vectorised NumPy (tests/reference/direct_numpy.py).
+    #    Both single-threaded; timed by process CPU time, which other load on the machine does not
+    #    inflate (wall times printed in the case text).
+    ti = _field((100, 100), 4.0, 0)
+    shape = (1, 30, 30) if args.quick else (1, 50, 50)
+    ds = sl.DirectSampler(ti, neighbors=30, accept_distance=0.05, scan_fraction=0.3)
+    w0, c0 = time.perf_counter(), time.process_time()
+    ours = ds.simulate(shape, seed=1, threads=1, return_source=True)[1]
+    w_ours, c_ours = time.perf_counter() - w0, time.process_time() - c0
+    lo, span = float(ti.min()), float(ti.max() - ti.min())
+    w0, c0 = time.perf_counter(), time.process_time()
+    _, ref = simulate_reference(
+        [(ti[None] - lo) / span],
+        [False],
+        [np.full(shape, np.nan)],
+        [False],
+        ds.template.offsets,
+        30,
+        0.05,
+        0.3,
+        [1.0],
+        1,
+    )
+    w_ref, c_ref = time.perf_counter() - w0, time.process_time() - c0
+    same = float(np.mean(ours.reshape(shape) == ref))
+    yield (
+        f"2-D continuous {shape[1]}x{shape[2]}, TI 100x100, n=30, vs NumPy, CPU s (wall"
+        f" {w_ours:.3g} / {w_ref:.3g} s; same copies {same:.0%})",
+        c_ours,
+        c_ref,
+        c_ref / c_ours,
+        ">= 50x",
+    )
+
+    # 2. Nanoseconds per neighbour comparison from the engine counters (CPU time of the workers).
+    big = _field((200, 200), 4.0, 0)
+    ds = sl.DirectSampler(big, neighbors=30, accept_distance=0.05, scan_fraction=0.3)
+    runs = []
+    for _ in range(3):
+        ds.simulate((100, 100), seed=1, threads=1)
+        runs.append(ds.last_stats)
+    st = min(runs, key=lambda r: r["cpu_seconds"])
+    ns = 1e9 * st["cpu_seconds"] / st["comparisons"]
+    yield (
+        f"ns per comparison (ours; reference = target), 2-D 200x200 TI, 100x100 grid, n=30, best"
+        f" of 3 ({st['comparisons'] / 1e6:.0f} M comparisons in {st['cpu_seconds']:.3f} s CPU)",
+        ns,
+        0.3,
+        ns / 0.3,
+        "<= 0.3 ns (ratio <= 1)",
+    )
+
+    # 3. A 1,000,000-cell 3-D continuous realization, 1 and 2 threads.
+    ti3 = _field((48, 48, 48), 3.0, 2)
+    n = 64 if args.quick else 100
+    ds = sl.DirectSampler(ti3, neighbors=30, accept_distance=0.05, scan_fraction=0.3)
+    wall, cpu = {}, {}
+    for threads in (1, 2):
+        w0 = time.perf_counter()
+        ds.simulate((n, n, n), seed=1, threads=threads)
+        wall[threads] = time.perf_counter() - w0
+        cpu[threads] = ds.last_stats["cpu_seconds"]
+    yield (
+        f"3-D {n}^3 = {n**3:,} cells, TI 48^3, n=30: wall s, 2 threads (ours) vs 1 thread"
+        f" (reference); worker CPU {cpu[1]:.1f} s / {cpu[2]:.1f} s",
+        wall[2],
+        wall[1],
+        wall[1] / wall[2],
+        ">= 1.8x",
+    )
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument(
+        "--only",
+        action="append",
+        choices=sorted(COMPARISONS),
+        help="run only this comparison (repeatable)",
+    )
+    parser.add_argument("--quick", action="store_true", help="smaller cases, for a smoke run")
+    args = parser.parse_args(argv)
+    names = args.only or list(COMPARISONS)
+    rows: list[tuple[str, Row]] = []
+    for name in names:
+        for row in COMPARISONS[name](args):
+            rows.append((name, row))
+            print(
+                f"[{name}] {row[0]}: ours {row[1]:.4g}, reference {row[2]:.4g}, "
+                f"ratio {row[3]:.3g} (target {row[4]})",
+                file=sys.stderr,
+                flush=True,
+            )
+    width = max(len(r[0]) for _, r in rows) if rows else 10
+    print(f"{'section':8} {'case':{width}} {'ours':>11} {'reference':>11} {'ratio':>8}  target")
+    for name, (case, ours, ref, ratio, target) in rows:
+        print(f"{name:8} {case:{width}} {ours:11.4g} {ref:11.4g} {ratio:8.3g}  {target}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
