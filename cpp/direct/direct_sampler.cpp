@@ -160,10 +160,8 @@ SL_KERNEL bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, f
   const Lanes zero = Lanes{};
   const Lanes one = zero + 1.0f;
   const Lanes minus_one = zero - 1.0f;
-  {
-    LaneMask none = valid == 0;
-    if (all_set(none)) return false;
-  }
+  // (A block with no usable candidate is skipped by the caller's count of real cells; one whose real
+  // cells all lack a needed variable is left to the lane masks: it ends as all +inf.)
   const bool prune = best < std::numeric_limits<float>::infinity();
   const Lanes best_v = zero + best;
   Lanes base = zero;

@@ -15,6 +15,9 @@ Distances, all in [0, 1]:
 * several variables: the mean of the per-variable distances weighted by ``weights``.
 
 A neighbour that falls on a masked TI cell, or outside the TI, counts as a full mismatch.
+
+A 3-D grid with a 2-D TI is simulated layer by layer (the default search radius is 0 along an axis
+the TI does not vary along).
 """
 
 from __future__ import annotations
@@ -192,8 +195,10 @@ class DirectSampler:
     accept_distance : float, default 0.05
         A TI location whose distance is at most this is copied at once. 0 asks for exact matches.
     scan_fraction : float, default 0.3
-        Fraction of the TI scanned, from a random start in flat C order, before the best location
-        seen is copied. In ``(0, 1]``.
+        Fraction of the TI scanned, from a random start in a fixed order, before the best location
+        seen is copied. In ``(0, 1]``. The order visits the cells at a stride of one neighbourhood
+        width along x (then phase after phase), so that consecutive candidates share no neighbour
+        cell; a plain flat order biases the first-match choice.
     search_radius : float or sequence of float, optional
         Semi-axes ``(rz, ry, rx)`` of the neighbourhood ellipsoid in cells; a pair is
         ``(ry, rx)`` and a single number applies to every axis the TI varies along. Default: 16
