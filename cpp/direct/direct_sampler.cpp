@@ -1,7 +1,9 @@
 #include "direct/direct_sampler.hpp"
 
 #include <algorithm>
+#include <atomic>
 #include <chrono>
+#include <thread>
 #include <cmath>
 #include <cstring>
 #include <limits>
@@ -353,11 +355,12 @@ class Simulation {
     return need;
   }
 
-  void node(Index c, Worker& w) const {
+  // Simulates the node at path position `pos`; false when the run was cancelled meanwhile.
+  bool node(Index c, std::int64_t pos, Worker& w) const {
     const std::uint32_t need = need_at(c);
-    if (!need) return;
+    if (!need) return true;
     const double t0 = thread_cpu_seconds();
-    gather(c, w);
+    if (!gather(c, pos, w)) return false;
     Index src = -1;
     float dist = 0;
     const bool accepted = scan(c, need, w, src, dist);
@@ -373,12 +376,34 @@ class Simulation {
       ++w.stats.accepted;
       if (dist == 0.0f) ++w.stats.exact;
     }
+    return true;
+  }
+
+  // Path order and completion flags: cell -> position on the path (-1 when not simulated), the
+  // variables that node will receive, and whether it is done. Set before the run.
+  void set_schedule(const std::int64_t* order, const std::uint32_t* need_of, const std::atomic<std::uint8_t>* done,
+                    const WorkControl* ctl) {
+    order_ = order;
+    need_of_ = need_of;
+    done_ = done;
+    ctl_ = ctl;
   }
 
  private:
+  // Waits until the node at cell g is done; false when the run is cancelled first.
+  bool wait_for(Index g) const {
+    for (int spin = 0;; ++spin) {
+      if (done_[g].load(std::memory_order_acquire)) return true;
+      if (ctl_->cancelled()) return false;
+      if (spin >= 64) std::this_thread::yield();
+    }
+  }
+
   // The n nearest informed nodes per variable: the node itself when informed, then the search
   // window in its order (nearest first), stopping once every variable has n.
-  void gather(Index c, Worker& w) const {
+  // Reads exactly what a one-thread run in path order would see: a cell that is a node of the path
+  // counts only when it comes earlier on the path, and then its values are waited for.
+  bool gather(Index c, std::int64_t pos, Worker& w) const {
     const int n = params_.neighbors;
     int open = 0;
     for (int v = 0; v < nvar_; ++v) {
@@ -404,9 +429,13 @@ class Simulation {
       const Index z = at[0] + look.lag[0], y = at[1] + look.lag[1], x = at[2] + look.lag[2];
       if (z < 0 || z >= shape[0] || y < 0 || y >= shape[1] || x < 0 || x >= shape[2]) continue;
       const Index g = c + look.grid_delta;
+      const std::int64_t og = order_[g];
+      // A node later on the path has only its given variables yet; an earlier one must be done.
+      const std::uint32_t pending = og > pos ? need_of_[g] : 0;
+      if (og >= 0 && og < pos && !wait_for(g)) return false;
       for (int v = 0; v < nvar_; ++v) {
         auto& l = w.lags[static_cast<std::size_t>(v)];
-        if (l.size >= n) continue;
+        if (l.size >= n || (pending & (std::uint32_t{1} << v))) continue;
         const float val = state_[static_cast<std::size_t>(v)][g];
         if (std::isnan(val)) continue;
         const auto k = static_cast<std::size_t>(l.size++);
@@ -435,6 +464,7 @@ class Simulation {
       view.sum[a] = static_cast<float>(l.weight_sum);
       view.categorical[a] = ti_.kind(v) == Kind::categorical;
     }
+    return true;
   }
 
   // Scans the TI from the node's random start; returns true when a candidate was accepted.
@@ -516,6 +546,10 @@ class Simulation {
   std::vector<Look> looks_;
   Index limit_ = 1;
   float accept_ = 0;
+  const std::int64_t* order_ = nullptr;
+  const std::uint32_t* need_of_ = nullptr;
+  const std::atomic<std::uint8_t>* done_ = nullptr;
+  const WorkControl* ctl_ = nullptr;
 };
 
 void check(const TrainingImage& ti, const Grid& grid, const std::vector<float*>& state, const std::vector<bool>& auxiliary,
@@ -567,9 +601,11 @@ Stats simulate(const TrainingImage& ti, const Grid& grid, const std::vector<floa
   for (int v = 0; v < ti.variables(); ++v)
     if (!auxiliary[static_cast<std::size_t>(v)]) all |= std::uint32_t{1} << v;
   std::vector<Index> path;
+  std::vector<std::uint32_t> need_of(static_cast<std::size_t>(cells), 0);
   bool any_full = false;
   for (Index c = 0; c < cells; ++c) {
     const std::uint32_t need = sim.need_at(c);
+    need_of[static_cast<std::size_t>(c)] = need;
     if (need) path.push_back(c);
     any_full |= need == all;
   }
@@ -581,36 +617,46 @@ Stats simulate(const TrainingImage& ti, const Grid& grid, const std::vector<floa
   }
   ctl.total = static_cast<std::int64_t>(path.size());
 
+  // Path order. Random: shuffled, then reordered into conflict-free batches (nodes of one batch
+  // cannot see each other), which spreads consecutive nodes apart so that workers rarely wait on
+  // each other. Sweep: flat order, a unilateral scheme in which every node depends on the previous
+  // one, so it runs on one thread.
   int threads = resolve_threads(params.threads);
-  std::vector<Worker> workers;
   if (params.path == PathKind::random) {
     shuffle_path(path, params.seed, 0);
     Offset reach{0, 0, 0};
     for (const Offset& o : params.search)
       for (int a = 0; a < 3; ++a) reach[a] = std::max(reach[a], std::abs(o[a]));
-    const auto starts = conflict_free_batches(grid, 0, reach, path, params.max_batch);
-    std::int64_t widest = 1;
-    for (std::size_t b = 0; b + 1 < starts.size(); ++b) widest = std::max(widest, starts[b + 1] - starts[b]);
-    threads = static_cast<int>(std::min<std::int64_t>(threads, widest));
-    for (int i = 0; i < threads; ++i) workers.push_back(sim.make_worker());
-    run_batches(
-        threads, starts, [&](int worker, std::int64_t pos) { sim.node(path[static_cast<std::size_t>(pos)], workers[static_cast<std::size_t>(worker)]); },
-        [](std::size_t) {}, ctl, poll);
+    conflict_free_batches(grid, 0, reach, path, params.max_batch);
   } else {
-    // A sweep is a unilateral scheme: each node must see all nodes before it, so it runs on one thread.
     threads = 1;
-    workers.push_back(sim.make_worker());
-    run_supervised(
-        1,
-        [&](int, int) {
-          for (Index c : path) {
-            if (ctl.cancelled()) return;
-            sim.node(c, workers[0]);
-            ctl.done.fetch_add(1, std::memory_order_relaxed);
-          }
-        },
-        ctl, poll);
   }
+  threads = static_cast<int>(std::clamp<std::int64_t>(static_cast<std::int64_t>(path.size()), 1, threads));
+  // The result is that of one thread visiting the path in order: a node waits only for the earlier
+  // nodes it reads (no barrier between batches, so a worker the system pauses holds up only the nodes
+  // that need its node), which makes it the same for any number of threads.
+  std::vector<std::int64_t> order(static_cast<std::size_t>(cells), -1);
+  for (std::size_t i = 0; i < path.size(); ++i) order[static_cast<std::size_t>(path[i])] = static_cast<std::int64_t>(i);
+  std::vector<std::atomic<std::uint8_t>> done(static_cast<std::size_t>(cells));
+  sim.set_schedule(order.data(), need_of.data(), done.data(), &ctl);
+  std::vector<Worker> workers;
+  for (int i = 0; i < threads; ++i) workers.push_back(sim.make_worker());
+  std::atomic<std::int64_t> next{0};
+  const auto count = static_cast<std::int64_t>(path.size());
+  run_supervised(
+      threads,
+      [&](int worker, int) {
+        Worker& w = workers[static_cast<std::size_t>(worker)];
+        while (!ctl.cancelled()) {
+          const std::int64_t pos = next.fetch_add(1, std::memory_order_relaxed);
+          if (pos >= count) return;
+          const Index c = path[static_cast<std::size_t>(pos)];
+          if (!sim.node(c, pos, w)) return;
+          done[static_cast<std::size_t>(c)].store(1, std::memory_order_release);
+          ctl.done.fetch_add(1, std::memory_order_relaxed);
+        }
+      },
+      ctl, poll);
   Stats total;
   for (const Worker& w : workers) {
     total.nodes += w.stats.nodes;
