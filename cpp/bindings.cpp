@@ -290,6 +290,7 @@ void bind_direct(py::module_& m) {
         stats["comparisons"] = st.comparisons;
         stats["accepted"] = st.accepted;
         stats["exact"] = st.exact;
+        stats["waits"] = st.waits;
         stats["distance_sum"] = st.distance_sum;
         stats["seconds"] = st.seconds;
         stats["cpu_seconds"] = st.cpu_seconds;

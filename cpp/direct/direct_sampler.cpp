@@ -391,7 +391,9 @@ class Simulation {
 
  private:
   // Waits until the node at cell g is done; false when the run is cancelled first.
-  bool wait_for(Index g) const {
+  bool wait_for(Index g, Worker& w) const {
+    if (done_[g].load(std::memory_order_acquire)) return true;
+    ++w.stats.waits;
     for (int spin = 0;; ++spin) {
       if (done_[g].load(std::memory_order_acquire)) return true;
       if (ctl_->cancelled()) return false;
@@ -432,7 +434,7 @@ class Simulation {
       const std::int64_t og = order_[g];
       // A node later on the path has only its given variables yet; an earlier one must be done.
       const std::uint32_t pending = og > pos ? need_of_[g] : 0;
-      if (og >= 0 && og < pos && !wait_for(g)) return false;
+      if (og >= 0 && og < pos && !wait_for(g, w)) return false;
       for (int v = 0; v < nvar_; ++v) {
         auto& l = w.lags[static_cast<std::size_t>(v)];
         if (l.size >= n || (pending & (std::uint32_t{1} << v))) continue;
@@ -664,6 +666,7 @@ Stats simulate(const TrainingImage& ti, const Grid& grid, const std::vector<floa
     total.comparisons += w.stats.comparisons;
     total.accepted += w.stats.accepted;
     total.exact += w.stats.exact;
+    total.waits += w.stats.waits;
     total.distance_sum += w.stats.distance_sum;
     total.cpu_seconds += w.stats.cpu_seconds;
   }

@@ -125,10 +125,10 @@ struct Params {
   std::vector<Offset> search;        // search window, nearest first (Template::ellipsoid order)
   std::vector<double> weights;       // per variable, positive
   double lag_power = 0.0;            // lag weight (1 + |lag|)**-lag_power, |lag| in cells
-  PathKind path = PathKind::random;  // random path in conflict-free batches, or one sweep in flat order
+  PathKind path = PathKind::random;  // random path (batch-ordered), or one sweep in flat order
   std::uint64_t seed = 0;
   int threads = 0;                   // <= 0: all hardware threads
-  std::int64_t max_batch = 256;      // nodes per conflict-free batch (random path)
+  std::int64_t max_batch = 256;      // batch size cap of the path's conflict-free ordering
 };
 
 // Engine counters of one run.
@@ -138,6 +138,7 @@ struct Stats {
   std::int64_t comparisons = 0;  // neighbour comparisons made (lane x lag)
   std::int64_t accepted = 0;     // nodes that stopped at a candidate <= accept_distance
   std::int64_t exact = 0;        // of those, nodes whose accepted distance was exactly 0
+  std::int64_t waits = 0;        // times a node had to wait for an earlier node still in progress
   double distance_sum = 0;       // sum over nodes of the distance of the copied candidate
   double seconds = 0;            // wall time of the simulation proper
   double cpu_seconds = 0;        // CPU time the workers spent on nodes (thread CPU clocks; 0 if unavailable)
@@ -145,6 +146,11 @@ struct Stats {
 };
 
 // Simulates every grid node at which some non-auxiliary variable is unknown (NaN in `state`).
+// Scheduling: the random path is shuffled (counter-based keys) and reordered by
+// conflict_free_batches with the search reach, then workers take nodes in that order; a node waits
+// only for the earlier nodes it reads (a done flag per cell), so the result equals that of one
+// thread walking the path, for any thread count, and no barrier stalls all workers when the system
+// pauses one. The sweep path runs on one thread.
 // `state[v]` holds grid.size() floats in the TI's normalised units, NaN where unknown; auxiliary
 // variables must be fully informed. Writes into `state` the copied values and into `source` (grid.size()
 // entries) the flat TI index each node copied from, -1 where nothing was simulated.

@@ -40,7 +40,7 @@ _KINDS = ("continuous", "categorical")
 _PATHS = ("random", "sweep")
 #: Largest category code (codes travel as float32, exact below 2**24).
 _MAX_CODE = 2**24 - 1
-#: Nodes per conflict-free batch on the random path.
+#: Batch size cap of the conflict-free ordering of the random path (spreads consecutive nodes).
 _MAX_BATCH = 256
 
 
@@ -326,7 +326,8 @@ class DirectSampler:
         threads : int, optional
             Worker threads (default: all cores). The result does not depend on it.
         path : {"random", "sweep"}, default "random"
-            ``"random"``: a random path, simulated in batches of nodes that cannot see each other.
+            ``"random"``: a random path; threads work on it together, each node waiting only
+            for the earlier nodes it reads, so the result is that of one thread.
             ``"sweep"``: flat C order (along x, then y, then z), for unilateral schemes; it runs
             on one thread because each node must see every node before it.
         return_source : bool, default False
