@@ -220,7 +220,8 @@ class DirectSampler:
     The hyperparameters are stored unchanged; they are checked against one table of constraints
     when the sampler is built and again at each `simulate` call. ``last_stats`` holds the engine
     counters of the latest run (nodes, candidates, neighbour comparisons, wall ``seconds``, the
-    workers' ``cpu_seconds`` and ``ns_per_comparison`` = worker CPU time / comparisons).
+    workers' ``cpu_seconds``, ``waits`` (nodes that waited for another thread's node) and
+    ``ns_per_comparison`` = worker CPU time / comparisons).
 
     References
     ----------
