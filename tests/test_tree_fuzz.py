@@ -50,7 +50,7 @@ def test_random_runs_keep_the_invariants(case):
     assert out.shape == grid
     assert np.isin(out, present).all(), "a code the TI does not hold was simulated"
     np.testing.assert_array_equal(out[pick], hard[pick])
-    probs, rep, kept = tree.conditional(np.zeros((0, 3), int), np.zeros(0, int))
+    probs, _, kept = tree.conditional(np.zeros((0, 3), int), np.zeros(0, int))
     assert kept == 0 and np.isclose(probs.sum(), 1) and (probs >= 0).all()
 
 

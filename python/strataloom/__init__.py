@@ -6,6 +6,8 @@ from importlib.metadata import PackageNotFoundError
 from importlib.metadata import version as _version
 
 from . import training
+from .direct import DirectSampler
+from .downscale import downscale
 from .errors import MemoryLimitError, ParameterError, ParameterTypeError, StudyError
 from .export import export_run
 from .grid import Grid
@@ -36,6 +38,7 @@ except PackageNotFoundError:  # running from a source tree without an install
 __all__ = [
     "Bodies",
     "Channels",
+    "DirectSampler",
     "Grid",
     "Levee",
     "MemoryLimitError",
@@ -52,6 +55,7 @@ __all__ = [
     "build_training_image",
     "check_run",
     "conflict_free_batches",
+    "downscale",
     "export_run",
     "gaussian_field",
     "open_run",
