@@ -8,7 +8,8 @@ Geosciences 22(10)): with ``M`` the valid-cell mask and ``I`` the indicator,
 
 and each sum is a cross-correlation. Connected bodies are the components of
 `scipy.ndimage.label` with 6-connectivity (faces) or 26-connectivity (faces, edges, corners); in a
-plan view (nz = 1) these are 4- and 8-connectivity.
+plan view (nz = 1) these are 4- and 8-connectivity. Labels, body sizes and connectivity functions
+come from :mod:`strataloom.connectivity`; the functions here take a TI and a code.
 """
 
 from __future__ import annotations
@@ -20,6 +21,7 @@ from typing import Any
 import numpy as np
 
 from .. import _validate as v
+from .. import connectivity as _conn
 
 __all__ = [
     "BodySizes",
@@ -235,15 +237,17 @@ def anisotropy(ti: Any, code: int, max_lag: int | None = None, spacing: Any = (1
     return az, ratio
 
 
-def _structure(connectivity: Any, owner: str) -> np.ndarray:
-    if connectivity not in (6, 26) or isinstance(connectivity, bool):
-        raise v.fail("connectivity", "6 (faces) or 26 (faces, edges and corners)", connectivity,
-                     owner)
-    return _scipy.ndi.generate_binary_structure(3, 1 if connectivity == 6 else 3)
-
-
 def label_bodies(ti: Any, code: int, connectivity: int = 6) -> tuple[np.ndarray, int]:
-    """Connected bodies of one facies (`scipy.ndimage.label`).
+    """Connected bodies of one facies (:func:`strataloom.connectivity.label_bodies`).
+
+    Parameters
+    ----------
+    ti : (nz, ny, nx) or (ny, nx) array of int
+        Codes; negative values are masked.
+    code : int
+        The facies.
+    connectivity : {6, 26}, default 6
+        Neighbourhood: faces, or faces, edges and corners.
 
     Returns
     -------
@@ -254,16 +258,29 @@ def label_bodies(ti: Any, code: int, connectivity: int = 6) -> tuple[np.ndarray,
     """
     o = "label_bodies"
     a = _codes(ti, o)
-    labels, n = _scipy.ndi.label(a == _code(code, o), structure=_structure(connectivity, o))
-    return labels, int(n)
+    return _conn.label_bodies(a == _code(code, o), connectivity, owner=o)
 
 
 def connected_share(ti: Any, code: int, connectivity: int = 6) -> float:
-    """Share of the facies' cells in its largest connected body (0 when the facies is absent)."""
+    """Share of the facies' cells in its largest connected body (0 when the facies is absent).
+
+    Parameters
+    ----------
+    ti : (nz, ny, nx) or (ny, nx) array of int
+        Codes; negative values are masked.
+    code : int
+        The facies.
+    connectivity : {6, 26}, default 6
+        Neighbourhood: faces, or faces, edges and corners.
+
+    Returns
+    -------
+    float
+    """
     labels, n = label_bodies(ti, code, connectivity)
     if n == 0:
         return 0.0
-    sizes = np.bincount(labels.ravel())[1:]
+    sizes = _conn.body_sizes(labels, n)[1:]
     return float(sizes.max() / sizes.sum())
 
 
@@ -272,7 +289,20 @@ def connectivity_function(ti: Any, code: int, axis: Any = "x", max_lag: int | No
     """Probability that two cells of a facies a lag apart along an axis are in one body.
 
     ``tau(h) = P(x and x + h connected | both in the facies)``, the connectivity function of
-    Allard (1994) and Renard & Allard (2013), Advances in Water Resources 51.
+    Allard (1994) and Renard & Allard (2013), Advances in Water Resources 51; computed by
+    :func:`strataloom.connectivity.connectivity_function` on the bodies of `label_bodies`.
+
+    Parameters
+    ----------
+    ti : (nz, ny, nx) or (ny, nx) array of int
+        Codes; negative values are masked.
+    code : int
+        The facies.
+    axis : {"z", "y", "x"} or {0, 1, 2}, default "x"
+    max_lag : int, optional
+        Largest lag in cells (default: half the axis length).
+    connectivity : {6, 26}, default 6
+        Neighbourhood: faces, or faces, edges and corners.
 
     Returns
     -------
@@ -286,23 +316,7 @@ def connectivity_function(ti: Any, code: int, axis: Any = "x", max_lag: int | No
     lmax = max(n // 2, 1) if max_lag is None else v.integer(max_lag, "max_lag", low=1,
                                                              high=max(n - 1, 1), owner=o)
     labels, _ = label_bodies(a, code, connectivity)
-    return np.arange(1, lmax + 1), _tau(labels, ax, lmax)
-
-
-def _tau(labels: np.ndarray, ax: int, lmax: int) -> np.ndarray:
-    """Connectivity function along ``ax`` from body labels (0 = outside the facies)."""
-    lab = np.moveaxis(labels, ax, 0)
-    n = lab.shape[0]
-    tau = np.full(lmax, np.nan)
-    for j, h in enumerate(range(1, lmax + 1)):
-        if h >= n:
-            break
-        x, y = lab[:-h], lab[h:]
-        both = (x > 0) & (y > 0)
-        nb = np.count_nonzero(both)
-        if nb:
-            tau[j] = np.count_nonzero(both & (x == y)) / nb
-    return tau
+    return np.arange(1, lmax + 1), _conn.connectivity_function(labels, lmax, ax)
 
 
 @dataclass(frozen=True)
@@ -340,7 +354,23 @@ class BodySizes:
 
 def body_sizes(ti: Any, code: int, connectivity: int = 6, spacing: Any = (1.0, 1.0, 1.0),
                ) -> BodySizes:
-    """Cell counts and bounding boxes of the connected bodies of one facies."""
+    """Cell counts and bounding boxes of the connected bodies of one facies.
+
+    Parameters
+    ----------
+    ti : (nz, ny, nx) or (ny, nx) array of int
+        Codes; negative values are masked.
+    code : int
+        The facies.
+    connectivity : {6, 26}, default 6
+        Neighbourhood: faces, or faces, edges and corners.
+    spacing : sequence of 3 float, default (1, 1, 1)
+        Cell sizes ``(dz, dy, dx)``, for the extents.
+
+    Returns
+    -------
+    BodySizes
+    """
     o = "body_sizes"
     spc = np.array(v.triple(spacing, "spacing", float, owner=o))
     labels, n = label_bodies(ti, code, connectivity)
@@ -350,7 +380,7 @@ def body_sizes(ti: Any, code: int, connectivity: int = 6, spacing: Any = (1.0, 1
 def _sizes(labels: np.ndarray, n: int, spc: np.ndarray) -> BodySizes:
     if n == 0:
         return BodySizes(0, np.zeros(0, dtype=np.int64), np.zeros((0, 3)))
-    cells = np.bincount(labels.ravel())[1:]
+    cells = _conn.body_sizes(labels, n)[1:]
     boxes = _scipy.ndi.find_objects(labels)
     extent = np.array([[s.stop - s.start for s in b] for b in boxes], dtype=float) * spc
     order = np.argsort(-cells, kind="stable")
@@ -422,7 +452,7 @@ def describe(ti: Any, *, spacing: Any = (1.0, 1.0, 1.0), connectivity: int = 6,
     o = "describe"
     a = _codes(ti, o)
     spc = v.triple(spacing, "spacing", float, owner=o)
-    structure = _structure(connectivity, o)
+    _conn.structure(connectivity, owner=o)
     if max_lag is not None:
         v.integer(max_lag, "max_lag", low=1, high=2**31 - 1, owner=o)
     if tau_lag is not None:
@@ -433,13 +463,14 @@ def describe(ti: Any, *, spacing: Any = (1.0, 1.0, 1.0), connectivity: int = 6,
     bodies = []
     taus: dict[str, list[np.ndarray]] = {name: [] for name, _ in axes}
     for k in range(len(p)):
-        labels, n = _scipy.ndi.label(a == k, structure=structure)
-        sizes = _sizes(labels, int(n), np.array(spc))
+        labels, n = _conn.label_bodies(a == k, connectivity, owner=o)
+        sizes = _sizes(labels, n, np.array(spc))
         bodies.append(sizes)
         share[k] = sizes.cells[0] / sizes.cells.sum() if n else 0.0
         if tau_lag is not None:
             for name, ax in axes:
-                taus[name].append(_tau(labels, ax, max(min(tau_lag, a.shape[ax] // 2), 1)))
+                lag = max(min(tau_lag, a.shape[ax] // 2), 1)
+                taus[name].append(_conn.connectivity_function(labels, lag, ax))
     grams = {}
     for name, ax in axes:
         lag = a.shape[ax] // 2 if max_lag is None else min(max_lag, a.shape[ax] - 1)
