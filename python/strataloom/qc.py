@@ -24,6 +24,7 @@ import numpy as np
 
 from . import _validate as v
 from .connectivity import connectivity_function, label_bodies
+from .variogram import axis_semivariograms
 
 __all__ = [
     "QCResult",
@@ -54,7 +55,8 @@ def variogram_axes(values: Any, max_lag: int, mask: Any = None) -> np.ndarray:
     cells apart along axis ``a`` (0 = z, 1 = y, 2 = x). The sums are cross-correlations of the
     masked field, its square and the mask, evaluated for all lags at once with zero-padded FFTs
     along the axis (Marcotte 1996, "Fast variogram computation with FFT", Computers & Geosciences
-    22(10)), so the cost is O(n log n) instead of O(n · max_lag).
+    22(10)), so the cost is O(n log n) instead of O(n · max_lag); the kernel is
+    :func:`strataloom.variogram.axis_semivariograms`.
 
     Parameters
     ----------
@@ -80,32 +82,10 @@ def variogram_axes(values: Any, max_lag: int, mask: Any = None) -> np.ndarray:
                 "mask", f"an array of shape {f.shape}", f"shape {mk.shape}", "variogram_axes"
             )
         m &= mk.astype(bool)
-    f = np.where(m, f, 0.0)
-    mf = m.astype(np.float64)
     out = np.full((3, lags), np.nan)
     for ax in range(3):
-        n = f.shape[ax]
-        if n < 2:
-            continue
-        size = 1 << math.ceil(math.log2(2 * n))
-        g, g2 = np.fft.rfft(f, size, axis=ax), np.fft.rfft(f * f, size, axis=ax)
-        mm = np.fft.rfft(mf, size, axis=ax)
-        others = tuple(i for i in range(3) if i != ax)
-
-        pairs = _xcorr(mm, mm, others, size)
-        num = _xcorr(g2, mm, others, size) + _xcorr(mm, g2, others, size)
-        num -= 2.0 * _xcorr(g, g, others, size)
-        top = min(lags, n - 1)
-        h = np.arange(1, top + 1)
-        npairs = np.rint(pairs[h])
-        with np.errstate(divide="ignore", invalid="ignore"):
-            out[ax, :top] = np.where(npairs > 0, num[h] / (2.0 * npairs), np.nan)
+        out[ax] = axis_semivariograms([f], m, ax, lags)[0]
     return out
-
-
-def _xcorr(a: np.ndarray, b: np.ndarray, others: tuple[int, ...], n: int) -> np.ndarray:
-    """Sum over the other axes of the cross-correlation sum_t a(t) b(t + h), from spectra."""
-    return np.fft.irfft((np.conj(a) * b).sum(axis=others), n)
 
 
 def indicator_variograms(field_: Any, codes: Sequence[int], max_lag: int) -> np.ndarray:
@@ -118,24 +98,11 @@ def indicator_variograms(field_: Any, codes: Sequence[int], max_lag: int) -> np.
     f = v.as_volume(field_, "field")
     lags = v.integer(max_lag, "max_lag", low=1, owner="indicator_variograms")
     valid = np.isin(f, np.asarray(codes))
-    mf = valid.astype(np.float64)
     out = np.full((len(codes), 3, lags), np.nan)
     for ax in range(3):
-        n = f.shape[ax]
-        if n < 2:
-            continue
-        size = 1 << math.ceil(math.log2(2 * n))
-        others = tuple(i for i in range(3) if i != ax)
-        mm = np.fft.rfft(mf, size, axis=ax)
-        top = min(lags, n - 1)
-        h = np.arange(1, top + 1)
-        npairs = np.rint(_xcorr(mm, mm, others, size)[h])
-        for k, c in enumerate(codes):
-            g = np.fft.rfft((f == c).astype(np.float64), size, axis=ax)
-            num = _xcorr(g, mm, others, size) + _xcorr(mm, g, others, size)
-            num -= 2.0 * _xcorr(g, g, others, size)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                out[k, ax, :top] = np.where(npairs > 0, num[h] / (2.0 * npairs), np.nan)
+        out[:, ax] = axis_semivariograms(
+            ((f == c) for c in codes), valid, ax, lags, indicator=True
+        )
     return out
 
 

@@ -1,8 +1,9 @@
 """Statistics of training images: proportions, indicator variograms, connectivity, body sizes.
 
-Variograms are computed with FFTs over zero-padded arrays, which handles masked cells and the
-grid's edges exactly (Marcotte 1996, "Fast variogram computation with FFT", Computers &
-Geosciences 22(10)): with ``M`` the valid-cell mask and ``I`` the indicator,
+Variograms are computed with FFTs over zero-padded arrays (axis variograms by the kernel of
+:mod:`strataloom.variogram`), which handles masked cells and the grid's edges exactly (Marcotte
+1996, "Fast variogram computation with FFT", Computers & Geosciences 22(10)): with ``M`` the
+valid-cell mask and ``I`` the indicator,
 
     2 N(h) gamma(h) = sum M(x) M(x+h) (I(x) - I(x+h))**2,   N(h) = sum M(x) M(x+h),
 
@@ -22,6 +23,7 @@ import numpy as np
 
 from .. import _validate as v
 from .. import connectivity as _conn
+from ..variogram import axis_semivariograms
 
 __all__ = [
     "BodySizes",
@@ -97,24 +99,10 @@ def proportions(ti: Any, ncodes: int | None = None) -> np.ndarray:
 def _axis_variograms(a: np.ndarray, codes: list[int], ax: int, lmax: int) -> np.ndarray:
     """Semivariograms along axis ``ax`` at lags 1..lmax of each code's indicator, shape (K, L).
 
-    The pair counts and squared differences are cross-correlations along the axis (zero padded),
-    summed over the other axes in the frequency domain before the inverse transform.
+    Unmasked cells (code >= 0) take part; the FFT kernel is
+    :func:`strataloom.variogram.axis_semivariograms`.
     """
-    size = _scipy.fft.next_fast_len(2 * a.shape[ax], real=True)
-    others = tuple(d for d in range(3) if d != ax)
-    m = (a >= 0).astype(np.float64)
-    fm = _scipy.fft.rfft(m, n=size, axis=ax)
-    pairs = _scipy.fft.irfft(np.sum(np.abs(fm) ** 2, axis=others), n=size)
-    lags = np.arange(1, lmax + 1)
-    npairs = np.rint(pairs[lags])
-    out = np.empty((len(codes), lmax))
-    for j, k in enumerate(codes):
-        fi = _scipy.fft.rfft((a == k).astype(np.float64), n=size, axis=ax)
-        spec = np.conj(fm) * fi + np.conj(fi) * fm - 2.0 * np.abs(fi) ** 2
-        num = _scipy.fft.irfft(np.sum(spec, axis=others), n=size)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            out[j] = np.where(npairs > 0, num[lags] / (2.0 * np.maximum(npairs, 1)), np.nan)
-    return np.maximum(out, 0.0)
+    return axis_semivariograms(((a == k) for k in codes), a >= 0, ax, lmax, indicator=True)
 
 
 def indicator_variogram(ti: Any, code: int, axis: Any = "x", max_lag: int | None = None,
