@@ -24,6 +24,7 @@ import numpy as np
 
 from . import _validate as v
 from .connectivity import connectivity_function, label_bodies
+from .training.fields import circulant_field, correlation
 from .variogram import axis_semivariograms
 
 __all__ = [
@@ -368,10 +369,7 @@ def _upper_orthant(t: float, rho: np.ndarray) -> np.ndarray:
     return out
 
 
-_MODELS = {
-    "exponential": lambda h, a: np.exp(-3.0 * h / a),
-    "gaussian": lambda h, a: np.exp(-3.0 * (h / a) ** 2),
-}
+_MODELS = ("exponential", "gaussian")  # fitted models, see training.fields.correlation
 
 
 def _indicator_gamma_model(p: float, rho: np.ndarray) -> np.ndarray:
@@ -399,7 +397,7 @@ class TruncatedGaussian:
         rng = np.where(np.isfinite(self.ranges), self.ranges, np.inf)
         with np.errstate(divide="ignore", invalid="ignore"):
             d = np.sqrt(np.sum(np.where(np.isinf(rng), 0.0, lag / rng) ** 2, axis=-1))
-        return _MODELS[self.model](d, 1.0)
+        return correlation(d, self.model)
 
 
 def fit_truncated_gaussian(
@@ -439,7 +437,7 @@ def fit_truncated_gaussian(
     p = float(prop[cds.index(facies)])
     g = np.asarray(gamma, dtype=np.float64)
     best = None
-    for name, fn in _MODELS.items():
+    for name in _MODELS:
         ranges, cost = [], 0.0
         for ax in range(3):
             ok = np.isfinite(g[ax])
@@ -450,9 +448,9 @@ def fit_truncated_gaussian(
             target = g[ax][ok]
 
             def misfit(
-                log_a: float, h: np.ndarray = h, target: np.ndarray = target, fn: Any = fn
+                log_a: float, h: np.ndarray = h, target: np.ndarray = target, name: str = name
             ) -> float:
-                model = _indicator_gamma_model(p, fn(h, math.exp(log_a)))
+                model = _indicator_gamma_model(p, correlation(h / math.exp(log_a), name))
                 return float(np.sum((model - target) ** 2))
 
             res = minimize_scalar(
@@ -482,8 +480,9 @@ def truncated_gaussian(model: TruncatedGaussian, shape: Sequence[int], seed: int
     The Gaussian field is drawn by circulant embedding on a grid padded by at least one range
     (and doubled) along each axis (Dietrich & Newsam 1997, "Fast and exact simulation of stationary
     Gaussian processes through circulant embedding of the covariance matrix", SIAM J. Sci.
-    Comput. 18(4)); negative eigenvalues of the embedding, if any, are set to zero, which
-    slightly smooths the covariance at the largest lags.
+    Comput. 18(4)) with :func:`strataloom.training.fields.circulant_field`; negative eigenvalues
+    of the embedding, if any, are set to zero, which slightly smooths the covariance at the
+    largest lags.
     """
     shp = v.shape3(shape, "shape", owner="truncated_gaussian")
     s = v.seed(seed, owner="truncated_gaussian")
@@ -496,10 +495,7 @@ def truncated_gaussian(model: TruncatedGaussian, shape: Sequence[int], seed: int
         pad.append(1 << math.ceil(math.log2(max(2 * n, extra))))
     lags = np.meshgrid(*[np.minimum(np.arange(m), m - np.arange(m)) for m in pad], indexing="ij")
     cov = model.correlation(np.stack(lags, axis=-1).astype(np.float64))
-    lam = np.fft.rfftn(cov).real
-    lam = np.sqrt(np.maximum(lam, 0.0))
-    noise = np.random.default_rng(s).standard_normal(pad)
-    y = np.fft.irfftn(lam * np.fft.rfftn(noise), pad, axes=(0, 1, 2))[: shp[0], : shp[1], : shp[2]]
+    y = circulant_field(cov, np.random.default_rng(s))[: shp[0], : shp[1], : shp[2]]
     out = np.full(shp, model.codes[-1], dtype=np.int16)
     for c, t in reversed(list(zip(model.codes[:-1], model.thresholds, strict=True))):
         out[y <= t] = c
