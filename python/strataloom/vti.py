@@ -173,7 +173,7 @@ def read_image(
 def read_vti(
     path: str | Path,
 ) -> tuple[dict[str, np.ndarray], tuple[float, ...], tuple[float, ...]]:
-    """Read a ``.vti`` file written by :func:`write_vti` (raw appended cell data).
+    """Read a ``.vti`` file written by :func:`write_vti`: :func:`read_image` without the shape.
 
     Parameters
     ----------
@@ -182,10 +182,8 @@ def read_vti(
 
     Returns
     -------
-    arrays : dict of name to (nz, ny, nx) ndarray
-        The cell arrays, in native byte order.
-    spacing, origin : tuple of 3 float
-        In (z, y, x) order.
+    arrays, spacing, origin
+        As in :func:`read_image`.
     """
     arrays, _, spacing, origin = read_image(path)
     return arrays, spacing, origin

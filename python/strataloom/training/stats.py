@@ -73,6 +73,15 @@ def _axis(axis: Any, owner: str) -> int:
     return _AXES[axis]
 
 
+def _axis_lags(a: np.ndarray, axis: Any, max_lag: Any, owner: str) -> tuple[int, int]:
+    """The axis index and the largest lag (default half the axis, at most its length - 1)."""
+    ax = _axis(axis, owner)
+    n = a.shape[ax]
+    if max_lag is None:
+        return ax, max(n // 2, 1)
+    return ax, v.integer(max_lag, "max_lag", low=1, high=max(n - 1, 1), owner=owner)
+
+
 def proportions(ti: Any, ncodes: int | None = None) -> np.ndarray:
     """Share of each code 0..K-1 among the unmasked cells.
 
@@ -129,10 +138,7 @@ def indicator_variogram(ti: Any, code: int, axis: Any = "x", max_lag: int | None
     o = "indicator_variogram"
     a = _codes(ti, o)
     k = _code(code, o)
-    ax = _axis(axis, o)
-    n = a.shape[ax]
-    lmax = max(n // 2, 1) if max_lag is None else v.integer(max_lag, "max_lag", low=1,
-                                                             high=max(n - 1, 1), owner=o)
+    ax, lmax = _axis_lags(a, axis, max_lag, o)
     return np.arange(1, lmax + 1), _axis_variograms(a, [k], ax, lmax)[0]
 
 
@@ -254,12 +260,8 @@ def connected_share(ti: Any, code: int, connectivity: int = 6) -> float:
 
     Parameters
     ----------
-    ti : (nz, ny, nx) or (ny, nx) array of int
-        Codes; negative values are masked.
-    code : int
-        The facies.
-    connectivity : {6, 26}, default 6
-        Neighbourhood: faces, or faces, edges and corners.
+    ti, code, connectivity
+        As in `label_bodies`.
 
     Returns
     -------
@@ -282,15 +284,10 @@ def connectivity_function(ti: Any, code: int, axis: Any = "x", max_lag: int | No
 
     Parameters
     ----------
-    ti : (nz, ny, nx) or (ny, nx) array of int
-        Codes; negative values are masked.
-    code : int
-        The facies.
-    axis : {"z", "y", "x"} or {0, 1, 2}, default "x"
-    max_lag : int, optional
-        Largest lag in cells (default: half the axis length).
-    connectivity : {6, 26}, default 6
-        Neighbourhood: faces, or faces, edges and corners.
+    ti, code, connectivity
+        As in `label_bodies`.
+    axis, max_lag
+        As in `indicator_variogram`.
 
     Returns
     -------
@@ -299,10 +296,7 @@ def connectivity_function(ti: Any, code: int, axis: Any = "x", max_lag: int | No
     """
     o = "connectivity_function"
     a = _codes(ti, o)
-    ax = _axis(axis, o)
-    n = a.shape[ax]
-    lmax = max(n // 2, 1) if max_lag is None else v.integer(max_lag, "max_lag", low=1,
-                                                             high=max(n - 1, 1), owner=o)
+    ax, lmax = _axis_lags(a, axis, max_lag, o)
     labels, _ = label_bodies(a, code, connectivity)
     return np.arange(1, lmax + 1), _conn.connectivity_function(labels, lmax, ax)
 
@@ -346,12 +340,8 @@ def body_sizes(ti: Any, code: int, connectivity: int = 6, spacing: Any = (1.0, 1
 
     Parameters
     ----------
-    ti : (nz, ny, nx) or (ny, nx) array of int
-        Codes; negative values are masked.
-    code : int
-        The facies.
-    connectivity : {6, 26}, default 6
-        Neighbourhood: faces, or faces, edges and corners.
+    ti, code, connectivity
+        As in `label_bodies`.
     spacing : sequence of 3 float, default (1, 1, 1)
         Cell sizes ``(dz, dy, dx)``, for the extents.
 
