@@ -252,8 +252,11 @@ def _safe(name: str) -> str:
 
 
 def _pct_row(label: str, x: np.ndarray) -> list[Any]:
-    q = np.quantile(x, (0.1, 0.5, 0.9))
-    return [label, *[f"{y:.6g}" for y in q], f"{float(np.mean(x)):.6g}"]
+    """A percentiles.csv row: the summary's P10, P50, P90 and mean of one column."""
+    from .summary import _pct
+
+    d = _pct(x)
+    return [label, *[f"{float(d[k]):.6g}" for k in ("P10", "P50", "P90", "mean")]]
 
 
 def _cell(x: Any) -> Any:
