@@ -175,14 +175,12 @@ def wells_from_hard_data(cells: Any, shape: tuple[int, int, int]) -> dict[str, n
     group of hard-data cells is taken as one well, named ``W1, W2, ...`` in the order of their
     first cell (C order). Wells that touch each other merge into one group.
     """
-    from scipy import ndimage
-
     c = np.asarray(cells, dtype=np.int64).reshape(-1, 3)
     if c.size == 0:
         return {}
     mask = np.zeros(shape, dtype=bool)
     mask[c[:, 0], c[:, 1], c[:, 2]] = True
-    labels, n = ndimage.label(mask, structure=structure(26))
+    labels, n = label_bodies(mask, 26, owner="wells_from_hard_data")
     lab_of = labels[c[:, 0], c[:, 1], c[:, 2]]
     flat = np.ravel_multi_index(c.T, shape)
     order = []
