@@ -20,6 +20,7 @@
 #include "merge/tau.hpp"
 #include "tree/pattern_tree.hpp"
 #include "tree/tree_sim.hpp"
+#include "direct/direct_sampler.hpp"
 
 namespace py = pybind11;
 using sl::Index;
@@ -320,6 +321,91 @@ void bind_tree(py::module_& m) {
            py::arg("progress"));
 }
 
+// Direct sampling: the padded training image and one simulation call (GIL released inside).
+void bind_direct(py::module_& m) {
+  namespace ds = sl::direct;
+  py::class_<ds::TrainingImage>(m, "DirectTrainingImage")
+      .def(py::init([](std::array<Index, 3> shape, const std::vector<CArray<float>>& values, const std::vector<int>& kinds,
+                       std::array<std::int32_t, 3> reach) {
+             if (values.size() != kinds.size())
+               throw sl::ParameterError("training_image", "must hold one kind per variable.");
+             const Index cells = shape[0] * shape[1] * shape[2];
+             std::vector<const float*> ptrs;
+             std::vector<ds::Kind> ks;
+             for (std::size_t v = 0; v < values.size(); ++v) {
+               if (values[v].size() != cells)
+                 throw sl::ParameterError("training_image", "must hold variables of the same shape.");
+               if (kinds[v] != 0 && kinds[v] != 1) throw sl::ParameterError("kinds", "must be 0 (continuous) or 1 (categorical).");
+               ptrs.push_back(values[v].data());
+               ks.push_back(static_cast<ds::Kind>(kinds[v]));
+             }
+             py::gil_scoped_release release;
+             return ds::TrainingImage(to_ijk(shape), ptrs, ks, {reach[0], reach[1], reach[2]});
+           }),
+           py::arg("shape"), py::arg("values"), py::arg("kinds"), py::arg("reach"))
+      .def_property_readonly("shape", &ds::TrainingImage::shape)
+      .def_property_readonly("reach", &ds::TrainingImage::reach)
+      .def_property_readonly("variables", &ds::TrainingImage::variables);
+
+  m.def(
+      "direct_simulate",
+      [](const ds::TrainingImage& ti, std::array<Index, 3> shape, const std::vector<CArray<float>>& state_in,
+         const std::vector<bool>& auxiliary, std::int32_t neighbors, double accept_distance, double scan_fraction,
+         const CArray<std::int64_t>& search, const std::vector<double>& weights, double lag_power, const std::string& path,
+         std::uint64_t seed, int threads, std::int64_t max_batch, const py::object& progress) {
+        const sl::Grid grid(to_ijk(shape));
+        ds::Params params;
+        params.neighbors = neighbors;
+        params.accept_distance = accept_distance;
+        params.scan_fraction = scan_fraction;
+        params.search = offsets_from(search, "search_radius");
+        params.weights = weights;
+        params.lag_power = lag_power;
+        if (path == "random")
+          params.path = ds::PathKind::random;
+        else if (path == "sweep")
+          params.path = ds::PathKind::sweep;
+        else
+          throw sl::ParameterError("path", "must be 'random' or 'sweep'; got '" + path + "'.");
+        params.seed = seed;
+        params.threads = threads;
+        params.max_batch = max_batch;
+        std::vector<py::array_t<float>> state;
+        std::vector<float*> ptrs;
+        for (const auto& a : state_in) {
+          if (a.size() != grid.size()) throw sl::ParameterError("hard", "must hold arrays of the grid's shape.");
+          py::array_t<float> copy(a.size());
+          std::copy(a.data(), a.data() + a.size(), copy.mutable_data());
+          ptrs.push_back(copy.mutable_data());
+          state.push_back(std::move(copy));
+        }
+        py::array_t<std::int64_t> source(grid.size());
+        std::int64_t* src = source.mutable_data();
+        sl::WorkControl ctl;
+        const sl::Poll poll = make_poll(&progress);
+        ds::Stats st;
+        {
+          py::gil_scoped_release release;
+          st = ds::simulate(ti, grid, ptrs, auxiliary, params, src, ctl, poll);
+        }
+        py::dict stats;
+        stats["nodes"] = st.nodes;
+        stats["candidates"] = st.candidates;
+        stats["comparisons"] = st.comparisons;
+        stats["accepted"] = st.accepted;
+        stats["exact"] = st.exact;
+        stats["waits"] = st.waits;
+        stats["distance_sum"] = st.distance_sum;
+        stats["seconds"] = st.seconds;
+        stats["cpu_seconds"] = st.cpu_seconds;
+        stats["threads"] = st.threads;
+        return py::make_tuple(state, source, stats);
+      },
+      py::arg("ti"), py::arg("shape"), py::arg("state"), py::arg("auxiliary"), py::arg("neighbors"),
+      py::arg("accept_distance"), py::arg("scan_fraction"), py::arg("search"), py::arg("weights"), py::arg("lag_power"),
+      py::arg("path"), py::arg("seed"), py::arg("threads"), py::arg("max_batch"), py::arg("progress") = py::none());
+}
+
 }  // namespace
 
 PYBIND11_MODULE(_core, m) {
@@ -338,4 +424,5 @@ PYBIND11_MODULE(_core, m) {
   });
   bind_core(m);
   bind_tree(m);
+  bind_direct(m);
 }

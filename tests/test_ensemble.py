@@ -21,21 +21,14 @@ from study_helpers import write_small_study
 
 def _tree_bytes(folder: Path) -> dict[str, bytes]:
     """Every file of a run folder's realizations store and conditioning data, by relative path."""
-    return {
-        p.relative_to(folder).as_posix(): p.read_bytes()
-        for p in sorted(folder.rglob("*"))
-        if p.is_file()
-    }
+    return {p.relative_to(folder).as_posix(): p.read_bytes() for p in sorted(folder.rglob("*")) if p.is_file()}
 
 
 def test_seeds_follow_numpy_seed_sequence():
     # numpy.random.SeedSequence.spawn (numpy documentation, "Parallel random number generation"):
     # child i depends on (master entropy, i) only, so seeds do not change with the ensemble size
     seeds = realization_seeds(2024, 10)
-    ref = [
-        int(c.generate_state(1, dtype=np.uint64)[0] >> np.uint64(1))
-        for c in np.random.SeedSequence(2024).spawn(10)
-    ]
+    ref = [int(c.generate_state(1, dtype=np.uint64)[0] >> np.uint64(1)) for c in np.random.SeedSequence(2024).spawn(10)]
     assert seeds == ref
     assert realization_seeds(2024, 4) == seeds[:4]
     assert len(set(seeds)) == 10 and all(0 <= s < 2**63 for s in seeds)
@@ -136,9 +129,7 @@ def test_dask_local_cluster_equals_local_run(tmp_path):
     study = load_study(p)
     run_study(study, tmp_path / "local", processes=1, progress=False)
     with (
-        LocalCluster(
-            n_workers=2, threads_per_worker=1, processes=False, dashboard_address=None
-        ) as cluster,
+        LocalCluster(n_workers=2, threads_per_worker=1, processes=False, dashboard_address=None) as cluster,
         Client(cluster) as client,
     ):
         res = run_study(study, tmp_path / "dask", client=client, progress=False)
@@ -158,9 +149,7 @@ def test_dask_resumes_what_a_local_run_left(tmp_path):
     store._group["done"][1] = 0  # as if realization 1 had been interrupted
     store._group["done"][3] = 0
     with (
-        LocalCluster(
-            n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None
-        ) as cluster,
+        LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None) as cluster,
         Client(cluster) as client,
     ):
         res = run_study(study, tmp_path / "part", client=client, progress=False, prepared=prep)
@@ -306,3 +295,40 @@ def test_engine_failure_stops_the_pool_and_keeps_done_flags_true(tmp_path):
         assert (store.read("facies", int(i)) >= 0).all()
     res = run_ensemble(prep.factory(threads=1), store, seeds, processes=1, progress=False)
     assert 3 in res.computed and store.done().all()
+
+
+def test_direct_sampler_study_honours_continuous_hard_data(tmp_path):
+    from scipy.ndimage import gaussian_filter
+
+    rng = np.random.default_rng(4)
+    (tmp_path / "wells").mkdir()
+    # invented porosity-like training image: smoothed noise scaled to 0.05..0.30
+    field = gaussian_filter(rng.normal(size=(6, 40, 40)), sigma=(1, 3, 3))
+    ti = 0.05 + 0.25 * (field - field.min()) / (field.max() - field.min())
+    np.save(tmp_path / "ti.npy", ti.astype(np.float64))
+    rows = ["well,x,y,z,porosity"]
+    for name, (x, y) in {"P1": (25.0, 35.0), "P2": (105.0, 75.0), "P3": (145.0, 125.0)}.items():
+        for z in np.arange(0.25, 4.0, 0.5):
+            rows.append(f"{name},{x},{y},{z},{rng.uniform(0.05, 0.3):.4f}")
+    (tmp_path / "wells" / "p.csv").write_text("\n".join(rows) + "\n")
+    (tmp_path / "study.toml").write_text(
+        "[grid]\nshape = [4, 16, 16]\nspacing = [1.0, 10.0, 10.0]\n\n"
+        '[variables.porosity]\nkind = "continuous"\nunits = "fraction"\n\n'
+        '[training_image]\nfile = "ti.npy"\n\n[[wells]]\nfile = "wells/p.csv"\n\n'
+        '[engine]\nname = "direct_sampler"\n\n[engine.parameters]\nneighbors = 12\n'
+        "accept_distance = 0.05\nscan_fraction = 0.3\n\n"
+        "[ensemble]\nrealizations = 3\nseed = 5\n\n[output]\nsummary = false\nreport = false\n"
+    )
+    study = load_study(tmp_path / "study.toml")
+    res = run_study(study, tmp_path / "run", processes=1, progress=False)
+    hard = res.prepared.hard
+    assert len(hard.cells) == 3 * 4  # two samples per cell, averaged (length-weighted mean)
+    store = RealizationStore.open(tmp_path / "run" / "realizations.zarr", mode="r")
+    arr = store.array("porosity")
+    assert arr.dtype == np.float32 and np.isnan(arr.fill_value)
+    assert store.attrs["variables"]["porosity"] == {"kind": "continuous", "units": "fraction"}
+    for i in range(3):
+        r = store.read("porosity", i)
+        assert np.isfinite(r).all()
+        np.testing.assert_array_equal(r[tuple(hard.cells.T)], hard.values["porosity"].astype(np.float32))
+        assert 0.05 - 1e-6 <= r.min() and r.max() <= 0.30 + 1e-6  # values copied from the TI

@@ -1,5 +1,6 @@
 """Thread pool: progress reports, Ctrl-C, no threads left behind."""
 
+import itertools
 import os
 import signal
 import threading
@@ -20,7 +21,7 @@ def test_progress_reaches_the_callback():
     assert used == 2
     assert len(seen) >= 2
     assert seen[-1] == (1000, 1000)
-    assert all(a[0] <= b[0] for a, b in zip(seen, seen[1:], strict=False))
+    assert all(a[0] <= b[0] for a, b in itertools.pairwise(seen))
 
 
 def test_error_in_progress_callback_stops_the_run():

@@ -6,7 +6,6 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 import strataloom as sl
-
 from reference import counting
 
 

@@ -76,7 +76,7 @@ def test_hard_code_absent_from_the_ti():
     tree = sl.PatternTree(np.array([[0, 2, 0, 2, 0, 2]] * 4), TPL)
     hard = np.full((3, 3), -1)
     hard[1, 1] = 1
-    with pytest.raises(ValueError, match="hard.*does not contain"):
+    with pytest.raises(ValueError, match=r"hard.*does not contain"):
         tree.simulate((3, 3), hard=hard)
 
 

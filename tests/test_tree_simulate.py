@@ -151,7 +151,7 @@ def test_simulated_bodies_resemble_the_ti():
     tree = sl.PatternTree(ti, sl.Template.ellipsoid((0, 4, 4), max_nodes=30), levels=3)
 
     def gamma(a, lag):
-        return 0.5 * np.mean((a[:, lag:] != a[:, :-lag]))
+        return 0.5 * np.mean(a[:, lag:] != a[:, :-lag])
 
     for lag in (1, 3):
         ti_g = gamma(ti[0], lag)

@@ -22,6 +22,35 @@ std::string mib(std::int64_t bytes) {
 
 }  // namespace
 
+namespace detail {
+
+// The bit-plane kernel: x86-64 processors have had a popcount instruction since about 2008, but the
+// baseline target does not, so a clone that uses it is chosen at load time where available.
+#if defined(__x86_64__) && defined(__ELF__) && (defined(__GNUC__) || defined(__clang__)) && !defined(STRATALOOM_NO_CLONES)
+#define SL_POPCOUNT_KERNEL __attribute__((target_clones("default", "popcnt")))
+#else
+#define SL_POPCOUNT_KERNEL
+#endif
+
+SL_POPCOUNT_KERNEL std::size_t keep_matching(std::uint32_t* word_index, std::uint64_t* word_alive, std::size_t n,
+                                             const std::uint64_t* plane, const std::uint64_t* category,
+                                             std::size_t words, std::size_t K, std::int64_t* counts) {
+  for (std::size_t q = 0; q < K; ++q) counts[q] = 0;
+  std::size_t out = 0;
+  for (std::size_t i = 0; i < n; ++i) {
+    const std::uint32_t w = word_index[i];
+    const std::uint64_t a = word_alive[i] & plane[w];
+    if (!a) continue;
+    word_index[out] = w;
+    word_alive[out] = a;
+    ++out;
+    for (std::size_t q = 0; q < K; ++q) counts[q] += std::popcount(a & category[q * words + w]);
+  }
+  return out;
+}
+
+}  // namespace detail
+
 std::int64_t default_memory_limit() {
   const long pages = sysconf(_SC_PHYS_PAGES);
   const long page = sysconf(_SC_PAGE_SIZE);
@@ -310,17 +339,8 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
   sc.counts.resize(K);
   for (std::size_t n = static_cast<std::size_t>(k); n < static_cast<std::size_t>(m); ++n) {
     const std::uint64_t* plane = planes + (static_cast<std::size_t>(index[n]) * K + value[n]) * words;
-    std::fill(sc.counts.begin(), sc.counts.end(), 0);
-    std::size_t out = 0;
-    for (std::size_t i = 0; i < sc.word_index.size(); ++i) {
-      const std::uint32_t w = sc.word_index[i];
-      const std::uint64_t a = sc.word_alive[i] & plane[w];
-      if (!a) continue;
-      sc.word_index[out] = w;
-      sc.word_alive[out] = a;
-      ++out;
-      for (std::size_t q = 0; q < K; ++q) sc.counts[q] += std::popcount(a & category[q * words + w]);
-    }
+    const std::size_t out = detail::keep_matching(sc.word_index.data(), sc.word_alive.data(), sc.word_index.size(),
+                                                  plane, category, words, K, sc.counts.data());
     sc.word_index.resize(out);
     sc.word_alive.resize(out);
     ans.visited += static_cast<std::int64_t>(out) * 64;

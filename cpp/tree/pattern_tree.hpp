@@ -117,6 +117,13 @@ class PatternTree {
   std::vector<Level> levels_;
 };
 
+namespace detail {
+// Keeps the candidate words whose centres still match `plane` (compacting both arrays in place),
+// counts the survivors per centre category into counts[0..K), and returns how many words remain.
+std::size_t keep_matching(std::uint32_t* word_index, std::uint64_t* word_alive, std::size_t n, const std::uint64_t* plane,
+                          const std::uint64_t* category, std::size_t words, std::size_t K, std::int64_t* counts);
+}  // namespace detail
+
 // Half of the physical memory: the default limit for building trees.
 std::int64_t default_memory_limit();
 

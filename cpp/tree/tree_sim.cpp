@@ -83,7 +83,7 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
     w.sources.resize(Ks * (1 + opt.soft.size()));
   }
   const std::vector<Offset>& offsets = tree.base_template().offsets();
-  const int max_cond = opt.max_conditioning > 0 ? opt.max_conditioning : static_cast<int>(D);
+  const int cap = opt.max_conditioning > 0 ? opt.max_conditioning : static_cast<int>(D);
   if (stats) *stats = TreeSimStats{std::vector<std::int64_t>(static_cast<std::size_t>(levels), 0),
                                    std::vector<double>(static_cast<std::size_t>(levels), 0.0),
                                    std::vector<double>(static_cast<std::size_t>(levels), 0.0),
@@ -129,9 +129,9 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
       Worker& w = workers[static_cast<std::size_t>(wid)];
       const Index cell = path[static_cast<std::size_t>(pos)];
       const Ijk c = grid.cell(cell);
-      // Data event: informed template nodes, nearest first, up to max_cond.
+      // Data event: informed template nodes, nearest first, up to the cap on conditioning nodes.
       int m = 0;
-      for (std::size_t i = 0; i < D && m < max_cond; ++i) {
+      for (std::size_t i = 0; i < D && m < cap; ++i) {
         const Ijk q{c[0] + Index{offsets[i][0]} * step, c[1] + Index{offsets[i][1]} * step,
                     c[2] + Index{offsets[i][2]} * step};
         if (!grid.contains(q)) continue;

@@ -6,6 +6,8 @@ from importlib.metadata import PackageNotFoundError
 from importlib.metadata import version as _version
 
 from . import training
+from .direct import DirectSampler
+from .downscale import downscale
 from .ensemble import realization_seeds, run_ensemble
 from .errors import MemoryLimitError, ParameterError, ParameterTypeError, StudyError
 from .export import export_run
@@ -40,6 +42,7 @@ except PackageNotFoundError:  # running from a source tree without an install
 __all__ = [
     "Bodies",
     "Channels",
+    "DirectSampler",
     "Grid",
     "Levee",
     "MemoryLimitError",
@@ -59,6 +62,7 @@ __all__ = [
     "check_run",
     "check_study",
     "conflict_free_batches",
+    "downscale",
     "export_run",
     "gaussian_field",
     "load_study",

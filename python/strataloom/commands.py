@@ -9,6 +9,30 @@ from pathlib import Path
 from .cli import command
 
 
+def _connectivity_option(p: argparse.ArgumentParser) -> None:
+    """The ``--connectivity`` option shared by the subcommands that label facies bodies."""
+    p.add_argument(
+        "--connectivity",
+        type=int,
+        choices=(6, 26),
+        default=6,
+        help="neighbourhood of facies bodies: 6 = faces, 26 = faces, edges and corners "
+        "(default 6)",
+    )
+
+
+def _memory_option(p: argparse.ArgumentParser, what: str) -> None:
+    """The ``--memory-mb`` option of the subcommands that may summarise a run."""
+    p.add_argument(
+        "--memory-mb", type=float, default=256.0, help=f"memory for {what}, MiB (default 256)"
+    )
+
+
+def _run_dir_argument(p: argparse.ArgumentParser) -> None:
+    """The positional run folder of the run subcommands."""
+    p.add_argument("dir", metavar="DIR", help="run folder holding realizations.zarr")
+
+
 def _ti_arguments(parser: argparse.ArgumentParser) -> None:
     sub = parser.add_subparsers(dest="ti_action", metavar="ACTION", required=True)
     b = sub.add_parser("build", help="build a training image from a TOML spec",
@@ -26,8 +50,7 @@ def _ti_arguments(parser: argparse.ArgumentParser) -> None:
     s.add_argument("ti", help="a .npy array of codes or a .vti with a 'facies' cell array")
     s.add_argument("--spacing", type=float, nargs=3, metavar=("DZ", "DY", "DX"), default=None,
                    help="cell sizes (default: from the .vti, else 1 1 1)")
-    s.add_argument("--connectivity", type=int, choices=(6, 26), default=6,
-                   help="6 (faces) or 26 (faces, edges and corners); default 6")
+    _connectivity_option(s)
     s.add_argument("--json", action="store_true", help="print JSON (with variograms) instead")
     r = sub.add_parser("rank", help="rank candidate training images against well sequences",
                        description="Compare the frequencies of vertical facies patterns of the "
@@ -146,20 +169,9 @@ def _load_ti(path: str | None, run_dir: Path) -> object:
 
 
 def _summarize_args(p: argparse.ArgumentParser) -> None:
-    p.add_argument("dir", metavar="DIR", help="run folder holding realizations.zarr")
-    p.add_argument(
-        "--memory-mb",
-        type=float,
-        default=256.0,
-        help="memory for the quantile stack of one slab of cells, MiB (default 256)",
-    )
-    p.add_argument(
-        "--connectivity",
-        type=int,
-        choices=(6, 26),
-        default=6,
-        help="neighbourhood of facies bodies: 6 = faces, 26 = faces, edges, corners",
-    )
+    _run_dir_argument(p)
+    _memory_option(p, "the quantile stack of one slab of cells")
+    _connectivity_option(p)
     p.add_argument(
         "--no-quantiles",
         action="store_true",
@@ -183,7 +195,7 @@ def _summarize(args: argparse.Namespace) -> int:
 
 
 def _report_args(p: argparse.ArgumentParser) -> None:
-    p.add_argument("dir", metavar="DIR", help="run folder holding realizations.zarr")
+    _run_dir_argument(p)
     p.add_argument(
         "--ti",
         metavar="FILE.npy",
@@ -201,19 +213,8 @@ def _report_args(p: argparse.ArgumentParser) -> None:
         action="store_true",
         help="add a truncated-Gaussian two-point baseline to the connectivity plots",
     )
-    p.add_argument(
-        "--connectivity",
-        type=int,
-        choices=(6, 26),
-        default=6,
-        help="neighbourhood of facies bodies",
-    )
-    p.add_argument(
-        "--memory-mb",
-        type=float,
-        default=256.0,
-        help="memory for the summary's quantile stack, MiB, if the summary is computed",
-    )
+    _connectivity_option(p)
+    _memory_option(p, "the summary's quantile stack, if the summary is computed")
 
 
 @command("report", "write the ensemble report DIR/report.html (summarising first if needed)")
@@ -236,7 +237,7 @@ def _report(args: argparse.Namespace) -> int:
 
 
 def _export_args(p: argparse.ArgumentParser) -> None:
-    p.add_argument("dir", metavar="DIR", help="run folder holding realizations.zarr")
+    _run_dir_argument(p)
     p.add_argument(
         "--format",
         required=True,

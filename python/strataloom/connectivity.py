@@ -24,16 +24,32 @@ __all__ = [
 ]
 
 
-def structure(connectivity: int = 6) -> np.ndarray:
-    """The 3×3×3 neighbourhood of 6- or 26-connectivity for :func:`scipy.ndimage.label`."""
+def structure(connectivity: int = 6, *, owner: str | None = None) -> np.ndarray:
+    """The 3×3×3 neighbourhood of 6- or 26-connectivity for :func:`scipy.ndimage.label`.
+
+    Parameters
+    ----------
+    connectivity : {6, 26}
+        Neighbourhood, see the module notes.
+    owner : str, optional
+        Function named in the error message for a bad ``connectivity``.
+
+    Returns
+    -------
+    (3, 3, 3) ndarray of bool
+    """
     from scipy import ndimage
 
     if isinstance(connectivity, bool) or connectivity not in (6, 26):
-        raise v.fail("connectivity", "6 (faces) or 26 (faces, edges and corners)", connectivity)
+        raise v.fail(
+            "connectivity", "6 (faces) or 26 (faces, edges and corners)", connectivity, owner
+        )
     return ndimage.generate_binary_structure(3, 1 if connectivity == 6 else 3)
 
 
-def label_bodies(mask: Any, connectivity: int = 6) -> tuple[np.ndarray, int]:
+def label_bodies(
+    mask: Any, connectivity: int = 6, *, owner: str | None = None
+) -> tuple[np.ndarray, int]:
     """Label the connected bodies of a boolean mask.
 
     Parameters
@@ -42,6 +58,8 @@ def label_bodies(mask: Any, connectivity: int = 6) -> tuple[np.ndarray, int]:
         Cells of the facies.
     connectivity : {6, 26}
         Neighbourhood, see the module notes.
+    owner : str, optional
+        Function named in error messages (default: none).
 
     Returns
     -------
@@ -52,13 +70,28 @@ def label_bodies(mask: Any, connectivity: int = 6) -> tuple[np.ndarray, int]:
     """
     from scipy import ndimage
 
-    m = v.as_volume(mask, "mask")
-    labels, n = ndimage.label(m.astype(bool, copy=False), structure=structure(connectivity))
+    m = v.as_volume(mask, "mask", owner=owner)
+    labels, n = ndimage.label(
+        m.astype(bool, copy=False), structure=structure(connectivity, owner=owner)
+    )
     return labels.astype(np.int32, copy=False), int(n)
 
 
 def body_sizes(labels: np.ndarray, n: int) -> np.ndarray:
-    """Number of cells of each body: ``(n + 1,)`` int64 with entry 0 for the background."""
+    """Number of cells of each body.
+
+    Parameters
+    ----------
+    labels : ndarray of int
+        Body labels from :func:`label_bodies` (0 = not the facies).
+    n : int
+        Number of bodies.
+
+    Returns
+    -------
+    (n + 1,) ndarray of int64
+        Entry ``i`` counts the cells of body ``i``; entry 0 the background.
+    """
     return np.bincount(labels.ravel(), minlength=n + 1).astype(np.int64)
 
 
@@ -113,15 +146,21 @@ def connectivity_function(labels: np.ndarray, max_lag: int, axis: int) -> np.nda
         Largest lag in cells.
     axis : int
         Axis of the lag.
+
+    Returns
+    -------
+    (max_lag,) ndarray of float64
+        ``tau(h)`` at ``h = 1 .. max_lag``.
     """
-    lab = v.as_volume(labels, "labels")
-    ax = v.integer(axis, "axis", low=0, high=2, owner="connectivity_function")
-    n = lab.shape[ax]
-    lags = v.integer(max_lag, "max_lag", low=1, owner="connectivity_function")
+    o = "connectivity_function"
+    lab = v.as_volume(labels, "labels", owner=o)
+    ax = v.integer(axis, "axis", low=0, high=2, owner=o)
+    lags = v.integer(max_lag, "max_lag", low=1, owner=o)
+    lab = np.moveaxis(lab, ax, 0)
+    n = lab.shape[0]
     out = np.full(lags, np.nan)
     for h in range(1, min(lags, n - 1) + 1):
-        a = np.take(lab, np.arange(0, n - h), axis=ax)
-        b = np.take(lab, np.arange(h, n), axis=ax)
+        a, b = lab[:-h], lab[h:]
         both = (a > 0) & (b > 0)
         pairs = int(np.count_nonzero(both))
         if pairs:
@@ -136,14 +175,12 @@ def wells_from_hard_data(cells: Any, shape: tuple[int, int, int]) -> dict[str, n
     group of hard-data cells is taken as one well, named ``W1, W2, ...`` in the order of their
     first cell (C order). Wells that touch each other merge into one group.
     """
-    from scipy import ndimage
-
     c = np.asarray(cells, dtype=np.int64).reshape(-1, 3)
     if c.size == 0:
         return {}
     mask = np.zeros(shape, dtype=bool)
     mask[c[:, 0], c[:, 1], c[:, 2]] = True
-    labels, n = ndimage.label(mask, structure=structure(26))
+    labels, n = label_bodies(mask, 26, owner="wells_from_hard_data")
     lab_of = labels[c[:, 0], c[:, 1], c[:, 2]]
     flat = np.ravel_multi_index(c.T, shape)
     order = []

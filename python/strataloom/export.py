@@ -1,17 +1,15 @@
 """Exports of a run: VTK ImageData (.vti) for ParaView, NumPy ``.npy`` files and CSV tables.
 
-The ``.vti`` writer is ours: the VTK XML ImageData format with cell data in one appended raw
-block (little-endian, 64-bit size headers). Cell ``(iz, iy, ix)`` of an ``(nz, ny, nx)`` C-order
-array is VTK cell ``ix + nx * (iy + ny * iz)``, so arrays are written without reordering.
+The ``.vti`` files are written and read by :mod:`strataloom.vti` (VTK XML ImageData, cell data in
+one appended raw block, 64-bit size headers); :func:`write_vti` and :func:`read_vti` here take and
+give a :class:`~strataloom.grid.Grid`.
 """
 
 from __future__ import annotations
 
 import csv
 import json
-import os
 import re
-import xml.etree.ElementTree as ET
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -19,27 +17,13 @@ from typing import Any
 import numpy as np
 
 from . import _validate as v
+from . import vti
 from .grid import Grid
 from .runread import SUMMARY_NAME, Run
 
 __all__ = ["FORMATS", "export_run", "read_vti", "write_vti"]
 
 FORMATS = ("vti", "npy", "csv")
-
-_VTK_TYPES = {
-    np.dtype("int8"): "Int8",
-    np.dtype("uint8"): "UInt8",
-    np.dtype("int16"): "Int16",
-    np.dtype("uint16"): "UInt16",
-    np.dtype("int32"): "Int32",
-    np.dtype("uint32"): "UInt32",
-    np.dtype("int64"): "Int64",
-    np.dtype("uint64"): "UInt64",
-    np.dtype("float32"): "Float32",
-    np.dtype("float64"): "Float64",
-}
-_NP_TYPES = {name: dt for dt, name in _VTK_TYPES.items()}
-
 
 def write_vti(path: Any, arrays: Mapping[str, np.ndarray], grid: Grid) -> Path:
     """Write cell arrays on a regular grid as a VTK XML ImageData file.
@@ -52,97 +36,45 @@ def write_vti(path: Any, arrays: Mapping[str, np.ndarray], grid: Grid) -> Path:
         Cell data; bool arrays are written as UInt8.
     grid : Grid
         Shape, spacing and origin. VTK's point extent is ``0..n`` along each axis.
+
+    Returns
+    -------
+    pathlib.Path
+        The file written.
+
+    See Also
+    --------
+    strataloom.vti.write_vti : the writer, with ``spacing`` and ``origin`` keywords.
     """
-    p = Path(path)
-    if not arrays:
-        raise v.fail("arrays", "at least one array", {}, "write_vti")
-    nz, ny, nx = grid.shape
-    blobs: list[tuple[str, str, bytes]] = []
     for name, a in arrays.items():
-        arr = np.asarray(a)
-        if arr.dtype == bool:
-            arr = arr.astype(np.uint8)
-        if arr.shape != grid.shape:
+        shape = np.shape(a)
+        if shape != grid.shape:
             raise v.fail(
-                f"arrays['{name}']",
+                f"arrays[{name!r}]",
                 f"an array of the grid's shape {grid.shape}",
-                f"shape {arr.shape}",
+                f"shape {shape}",
                 "write_vti",
             )
-        key = np.dtype(arr.dtype.name)  # the same type in native byte order
-        if key not in _VTK_TYPES:
-            raise v.fail_type(
-                f"arrays['{name}']", "an integer, float or bool array", arr, "write_vti"
-            )
-        data = np.ascontiguousarray(arr, dtype=key.newbyteorder("<")).tobytes()
-        blobs.append((name, _VTK_TYPES[key], data))
-    z0, y0, x0 = grid.origin
-    dz, dy, dx = grid.spacing
-    extent = f"0 {nx} 0 {ny} 0 {nz}"
-    lines = [
-        '<?xml version="1.0"?>',
-        '<VTKFile type="ImageData" version="1.0" byte_order="LittleEndian" header_type="UInt64">',
-        f'  <ImageData WholeExtent="{extent}" Origin="{x0!r} {y0!r} {z0!r}" '
-        f'Spacing="{dx!r} {dy!r} {dz!r}">',
-        f'    <Piece Extent="{extent}">',
-        f'      <CellData Scalars="{_attr(blobs[0][0])}">',
-    ]
-    offset = 0
-    for name, vtype, data in blobs:
-        lines.append(
-            f'        <DataArray type="{vtype}" Name="{_attr(name)}" NumberOfComponents="1" '
-            f'format="appended" offset="{offset}"/>'
-        )
-        offset += 8 + len(data)
-    lines += [
-        "      </CellData>",
-        "    </Piece>",
-        "  </ImageData>",
-        '  <AppendedData encoding="raw">',
-    ]
-    tmp = p.with_name(p.name + f".tmp-{os.getpid()}")
-    with open(tmp, "wb") as f:
-        f.write(("\n".join(lines) + "\n   _").encode("ascii"))
-        for _, _, data in blobs:
-            f.write(np.uint64(len(data)).astype("<u8").tobytes())
-            f.write(data)
-        f.write(b"\n  </AppendedData>\n</VTKFile>\n")
-    os.replace(tmp, p)
-    return p
-
-
-def _attr(s: str) -> str:
-    return s.replace("&", "&amp;").replace('"', "&quot;").replace("<", "&lt;")
+    return vti.write_vti(path, arrays, spacing=grid.spacing, origin=grid.origin)
 
 
 def read_vti(path: Any) -> tuple[dict[str, np.ndarray], Grid]:
     """Read a ``.vti`` file written by :func:`write_vti` (appended raw cell data).
 
-    Returns the arrays (shape ``(nz, ny, nx)``) and the grid.
+    Parameters
+    ----------
+    path : path
+        The ``.vti`` file.
+
+    Returns
+    -------
+    arrays : dict of str to (nz, ny, nx) ndarray
+        The cell arrays.
+    grid : Grid
+        Shape, spacing and origin of the file.
     """
-    raw = Path(path).read_bytes()
-    start = raw.index(b"<AppendedData")
-    body = raw.index(b"_", raw.index(b">", start)) + 1
-    head = raw[:start].decode("ascii") + "</VTKFile>"
-    root = ET.fromstring(head)
-    if root.get("type") != "ImageData" or root.get("header_type") != "UInt64":
-        raise v.fail("path", "a .vti ImageData file with UInt64 headers", str(path), "read_vti")
-    img = root.find("ImageData")
-    assert img is not None
-    e = [int(x) for x in img.get("WholeExtent", "").split()]
-    nx, ny, nz = e[1] - e[0], e[3] - e[2], e[5] - e[4]
-    ox, oy, oz = (float(x) for x in img.get("Origin", "0 0 0").split())
-    sx, sy, sz = (float(x) for x in img.get("Spacing", "1 1 1").split())
-    grid = Grid((nz, ny, nx), (sz, sy, sx), (oz, oy, ox))
-    out = {}
-    for da in img.iter("DataArray"):
-        off = body + int(da.get("offset", "0"))
-        n = int(np.frombuffer(raw[off : off + 8], dtype="<u8")[0])
-        dt = _NP_TYPES[da.get("type", "")].newbyteorder("<")
-        out[da.get("Name", "")] = np.frombuffer(raw[off + 8 : off + 8 + n], dtype=dt).reshape(
-            nz, ny, nx
-        )
-    return out, grid
+    arrays, shape, spacing, origin = vti.read_image(path)
+    return arrays, Grid(shape, spacing, origin)
 
 
 def _pick(r: Run, realizations: Any) -> list[int]:
@@ -320,8 +252,11 @@ def _safe(name: str) -> str:
 
 
 def _pct_row(label: str, x: np.ndarray) -> list[Any]:
-    q = np.quantile(x, (0.1, 0.5, 0.9))
-    return [label, *[f"{y:.6g}" for y in q], f"{float(np.mean(x)):.6g}"]
+    """A percentiles.csv row: the summary's P10, P50, P90 and mean of one column."""
+    from .summary import _pct
+
+    d = _pct(x)
+    return [label, *[f"{float(d[k]):.6g}" for k in ("P10", "P50", "P90", "mean")]]
 
 
 def _cell(x: Any) -> Any:

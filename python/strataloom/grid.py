@@ -88,7 +88,7 @@ class Grid:
         if not np.issubdtype(idx.dtype, np.integer):
             raise v.fail_type("index", "an integer array", idx, "Grid.cell")
         out = self._grid.cell(np.ascontiguousarray(idx, dtype=np.int64).ravel())
-        return out.reshape(idx.shape + (3,))
+        return out.reshape((*idx.shape, 3))
 
     def centre(self, cells: Any) -> np.ndarray:
         """Coordinates ``(z, y, x)`` of cell centres, shape ``cells.shape``."""

@@ -24,6 +24,8 @@ import numpy as np
 
 from . import _validate as v
 from .connectivity import connectivity_function, label_bodies
+from .training.fields import circulant_field, correlation
+from .variogram import axis_semivariograms
 
 __all__ = [
     "QCResult",
@@ -54,7 +56,8 @@ def variogram_axes(values: Any, max_lag: int, mask: Any = None) -> np.ndarray:
     cells apart along axis ``a`` (0 = z, 1 = y, 2 = x). The sums are cross-correlations of the
     masked field, its square and the mask, evaluated for all lags at once with zero-padded FFTs
     along the axis (Marcotte 1996, "Fast variogram computation with FFT", Computers & Geosciences
-    22(10)), so the cost is O(n log n) instead of O(n · max_lag).
+    22(10)), so the cost is O(n log n) instead of O(n · max_lag); the kernel is
+    :func:`strataloom.variogram.axis_semivariograms`.
 
     Parameters
     ----------
@@ -80,32 +83,10 @@ def variogram_axes(values: Any, max_lag: int, mask: Any = None) -> np.ndarray:
                 "mask", f"an array of shape {f.shape}", f"shape {mk.shape}", "variogram_axes"
             )
         m &= mk.astype(bool)
-    f = np.where(m, f, 0.0)
-    mf = m.astype(np.float64)
     out = np.full((3, lags), np.nan)
     for ax in range(3):
-        n = f.shape[ax]
-        if n < 2:
-            continue
-        size = 1 << math.ceil(math.log2(2 * n))
-        g, g2 = np.fft.rfft(f, size, axis=ax), np.fft.rfft(f * f, size, axis=ax)
-        mm = np.fft.rfft(mf, size, axis=ax)
-        others = tuple(i for i in range(3) if i != ax)
-
-        pairs = _xcorr(mm, mm, others, size)
-        num = _xcorr(g2, mm, others, size) + _xcorr(mm, g2, others, size)
-        num -= 2.0 * _xcorr(g, g, others, size)
-        top = min(lags, n - 1)
-        h = np.arange(1, top + 1)
-        npairs = np.rint(pairs[h])
-        with np.errstate(divide="ignore", invalid="ignore"):
-            out[ax, :top] = np.where(npairs > 0, num[h] / (2.0 * npairs), np.nan)
+        out[ax] = axis_semivariograms([f], m, ax, lags)[0]
     return out
-
-
-def _xcorr(a: np.ndarray, b: np.ndarray, others: tuple[int, ...], n: int) -> np.ndarray:
-    """Sum over the other axes of the cross-correlation sum_t a(t) b(t + h), from spectra."""
-    return np.fft.irfft((np.conj(a) * b).sum(axis=others), n)
 
 
 def indicator_variograms(field_: Any, codes: Sequence[int], max_lag: int) -> np.ndarray:
@@ -118,24 +99,11 @@ def indicator_variograms(field_: Any, codes: Sequence[int], max_lag: int) -> np.
     f = v.as_volume(field_, "field")
     lags = v.integer(max_lag, "max_lag", low=1, owner="indicator_variograms")
     valid = np.isin(f, np.asarray(codes))
-    mf = valid.astype(np.float64)
     out = np.full((len(codes), 3, lags), np.nan)
     for ax in range(3):
-        n = f.shape[ax]
-        if n < 2:
-            continue
-        size = 1 << math.ceil(math.log2(2 * n))
-        others = tuple(i for i in range(3) if i != ax)
-        mm = np.fft.rfft(mf, size, axis=ax)
-        top = min(lags, n - 1)
-        h = np.arange(1, top + 1)
-        npairs = np.rint(_xcorr(mm, mm, others, size)[h])
-        for k, c in enumerate(codes):
-            g = np.fft.rfft((f == c).astype(np.float64), size, axis=ax)
-            num = _xcorr(g, mm, others, size) + _xcorr(mm, g, others, size)
-            num -= 2.0 * _xcorr(g, g, others, size)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                out[k, ax, :top] = np.where(npairs > 0, num[h] / (2.0 * npairs), np.nan)
+        out[:, ax] = axis_semivariograms(
+            ((f == c) for c in codes), valid, ax, lags, indicator=True
+        )
     return out
 
 
@@ -401,10 +369,7 @@ def _upper_orthant(t: float, rho: np.ndarray) -> np.ndarray:
     return out
 
 
-_MODELS = {
-    "exponential": lambda h, a: np.exp(-3.0 * h / a),
-    "gaussian": lambda h, a: np.exp(-3.0 * (h / a) ** 2),
-}
+_MODELS = ("exponential", "gaussian")  # fitted models, see training.fields.correlation
 
 
 def _indicator_gamma_model(p: float, rho: np.ndarray) -> np.ndarray:
@@ -432,7 +397,7 @@ class TruncatedGaussian:
         rng = np.where(np.isfinite(self.ranges), self.ranges, np.inf)
         with np.errstate(divide="ignore", invalid="ignore"):
             d = np.sqrt(np.sum(np.where(np.isinf(rng), 0.0, lag / rng) ** 2, axis=-1))
-        return _MODELS[self.model](d, 1.0)
+        return correlation(d, self.model)
 
 
 def fit_truncated_gaussian(
@@ -472,7 +437,7 @@ def fit_truncated_gaussian(
     p = float(prop[cds.index(facies)])
     g = np.asarray(gamma, dtype=np.float64)
     best = None
-    for name, fn in _MODELS.items():
+    for name in _MODELS:
         ranges, cost = [], 0.0
         for ax in range(3):
             ok = np.isfinite(g[ax])
@@ -483,9 +448,9 @@ def fit_truncated_gaussian(
             target = g[ax][ok]
 
             def misfit(
-                log_a: float, h: np.ndarray = h, target: np.ndarray = target, fn: Any = fn
+                log_a: float, h: np.ndarray = h, target: np.ndarray = target, name: str = name
             ) -> float:
-                model = _indicator_gamma_model(p, fn(h, math.exp(log_a)))
+                model = _indicator_gamma_model(p, correlation(h / math.exp(log_a), name))
                 return float(np.sum((model - target) ** 2))
 
             res = minimize_scalar(
@@ -515,8 +480,9 @@ def truncated_gaussian(model: TruncatedGaussian, shape: Sequence[int], seed: int
     The Gaussian field is drawn by circulant embedding on a grid padded by at least one range
     (and doubled) along each axis (Dietrich & Newsam 1997, "Fast and exact simulation of stationary
     Gaussian processes through circulant embedding of the covariance matrix", SIAM J. Sci.
-    Comput. 18(4)); negative eigenvalues of the embedding, if any, are set to zero, which
-    slightly smooths the covariance at the largest lags.
+    Comput. 18(4)) with :func:`strataloom.training.fields.circulant_field`; negative eigenvalues
+    of the embedding, if any, are set to zero, which slightly smooths the covariance at the
+    largest lags.
     """
     shp = v.shape3(shape, "shape", owner="truncated_gaussian")
     s = v.seed(seed, owner="truncated_gaussian")
@@ -529,10 +495,7 @@ def truncated_gaussian(model: TruncatedGaussian, shape: Sequence[int], seed: int
         pad.append(1 << math.ceil(math.log2(max(2 * n, extra))))
     lags = np.meshgrid(*[np.minimum(np.arange(m), m - np.arange(m)) for m in pad], indexing="ij")
     cov = model.correlation(np.stack(lags, axis=-1).astype(np.float64))
-    lam = np.fft.rfftn(cov).real
-    lam = np.sqrt(np.maximum(lam, 0.0))
-    noise = np.random.default_rng(s).standard_normal(pad)
-    y = np.fft.irfftn(lam * np.fft.rfftn(noise), pad, axes=(0, 1, 2))[: shp[0], : shp[1], : shp[2]]
+    y = circulant_field(cov, np.random.default_rng(s))[: shp[0], : shp[1], : shp[2]]
     out = np.full(shp, model.codes[-1], dtype=np.int16)
     for c, t in reversed(list(zip(model.codes[:-1], model.thresholds, strict=True))):
         out[y <= t] = c

@@ -311,7 +311,7 @@ def build_report(
     heading = title or (study.get("name") if isinstance(study, dict) else None) or r.path.name
 
     doc = _Doc()
-    now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    now = _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC")
 
     # ---- verdicts and cautions
     doc.section("verdicts", "QC verdicts")

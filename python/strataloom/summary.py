@@ -437,7 +437,13 @@ def summarize(
 
 
 def _coord(group: Any, name: str, values: np.ndarray) -> None:
-    a = group.create_array(name, shape=values.shape, dtype=values.dtype, dimension_names=(name,))
+    _put(group, name, values, (name,))
+
+
+def _put(group: Any, name: str, values: Any, dims: tuple[str, ...]) -> None:
+    """Store a whole (small) array under ``name`` with its dimension names."""
+    values = np.asarray(values)
+    a = group.create_array(name, shape=values.shape, dtype=values.dtype, dimension_names=dims)
     a[...] = values
 
 
@@ -514,30 +520,13 @@ def _categorical(
         most[b] = acc.most_likely(b)
         ent[b] = acc.entropy(b)
     del acc
-    a = group.create_array(
-        f"{name}_proportion",
-        shape=(n, k),
-        dtype="float64",
-        dimension_names=("realization", f"{name}_category"),
-    )
-    a[...] = proportions
+    cat = f"{name}_category"
+    _put(group, f"{name}_proportion", proportions, ("realization", cat))
     table: dict[str, Any] = {"codes": codes, "proportion": _pct(proportions)}
     if w:
-        a = group.create_array(
-            f"{name}_well_volume",
-            shape=(n, w, k),
-            dtype="float64",
-            dimension_names=("realization", "well", f"{name}_category"),
-        )
-        a[...] = volume
+        _put(group, f"{name}_well_volume", volume, ("realization", "well", cat))
         p = connected / n
-        a = group.create_array(
-            f"{name}_well_connection",
-            shape=(w, w, k),
-            dtype="float64",
-            dimension_names=("well", "well_to", f"{name}_category"),
-        )
-        a[...] = p
+        _put(group, f"{name}_well_connection", p, ("well", "well_to", cat))
         table["wells"] = list(wells)
         table["well_volume"] = _pct(volume)
         table["well_connection"] = p.tolist()

@@ -49,7 +49,9 @@ class Template:
         if a.shape[1] == 2:
             a = np.column_stack([np.zeros(len(a), dtype=np.int64), a])
         if len(a) > MAX_TEMPLATE_NODES:
-            raise v.fail("offsets", f"at most {MAX_TEMPLATE_NODES} offsets", f"{len(a)} offsets", "Template")
+            raise v.fail(
+                "offsets", f"at most {MAX_TEMPLATE_NODES} offsets", f"{len(a)} offsets", "Template"
+            )
         self._offsets = _core.template_check(np.ascontiguousarray(a))
         self._offsets.flags.writeable = False
 
@@ -68,10 +70,7 @@ class Template:
         Template
             ``(2 rz + 1)(2 ry + 1)(2 rx + 1) - 1`` offsets, nearest first.
         """
-        if isinstance(radius, numbers.Integral) and not isinstance(radius, bool):
-            r = (int(radius),) * 3
-        else:
-            r = _radius_triple(radius, int, "Template.box")
+        r = _radius_triple(radius, int, "Template.box")
         for x in r:
             v.integer(x, "radius", low=0, high=10000, owner="Template.box")
         return cls._wrap(_core.template_box(r))
@@ -88,14 +87,12 @@ class Template:
         max_nodes : int, optional
             Keep only the first ``max_nodes`` offsets in the order rule.
         """
-        if isinstance(radius, numbers.Real) and not isinstance(radius, bool):
-            r = (float(radius),) * 3
-        else:
-            r = _radius_triple(radius, float, "Template.ellipsoid")
+        r = _radius_triple(radius, float, "Template.ellipsoid")
         for x in r:
             v.real(x, "radius", low=0, high=4096, owner="Template.ellipsoid")
-        n = 0 if max_nodes is None else v.integer(max_nodes, "max_nodes", low=1, high=MAX_TEMPLATE_NODES,
-                                                  owner="Template.ellipsoid")
+        n = 0 if max_nodes is None else v.integer(
+            max_nodes, "max_nodes", low=1, high=MAX_TEMPLATE_NODES, owner="Template.ellipsoid"
+        )
         return cls._wrap(_core.template_ellipsoid(r, n))
 
     @classmethod
@@ -132,12 +129,18 @@ class Template:
         lv = v.integer(level, "level", low=0, high=20, owner="Template.at_level")
         scaled = self._offsets * (1 << lv)
         if np.abs(scaled).max() > 2**24:
-            raise v.fail("level", "small enough that the scaled template stays within 2**24 cells", lv,
-                         "Template.at_level")
+            raise v.fail(
+                "level", "small enough that the scaled template stays within 2**24 cells", lv,
+                "Template.at_level",
+            )
         return Template._wrap(np.ascontiguousarray(scaled))
 
 
 def _radius_triple(radius: Any, kind: type, owner: str) -> tuple:
+    """``(rz, ry, rx)`` from one number (all axes), a pair ``(ry, rx)`` (``rz = 0``) or a triple."""
+    scalar = numbers.Integral if kind is int else numbers.Real
+    if isinstance(radius, scalar) and not isinstance(radius, bool):
+        return (kind(radius),) * 3
     items = list(radius) if isinstance(radius, (list, tuple, np.ndarray)) else None
     if items is None:
         raise v.fail_type("radius", "a number or a sequence of 2 or 3 numbers", radius, owner)

@@ -27,7 +27,14 @@ import numpy as np
 
 from .. import _validate as v
 
-__all__ = ["MODELS", "PropertyModel", "correlation", "gaussian_field", "property_field"]
+__all__ = [
+    "MODELS",
+    "PropertyModel",
+    "circulant_field",
+    "correlation",
+    "gaussian_field",
+    "property_field",
+]
 
 MODELS = ("exponential", "gaussian", "spherical")
 
@@ -107,11 +114,34 @@ def gaussian_field(shape: Any, *, range: Any, model: str = "exponential", azimut
     along = (hx * math.sin(th) + hy * math.cos(th)) / r[1]
     across = (hx * math.cos(th) - hy * math.sin(th)) / r[2]
     cov = correlation(np.sqrt(hz * hz + along * along + across * across), model)
-    spectrum = scipy.fft.rfftn(cov).real
-    np.maximum(spectrum, 0.0, out=spectrum)
-    noise = rng.standard_normal(m)
-    field = scipy.fft.irfftn(np.sqrt(spectrum) * scipy.fft.rfftn(noise), s=m)
+    field = circulant_field(cov, rng)
     return np.ascontiguousarray(field[: shp[0], : shp[1], : shp[2]])
+
+
+def circulant_field(covariance: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """One stationary Gaussian field on the periodic grid of a covariance (circulant embedding).
+
+    Parameters
+    ----------
+    covariance : ndarray of float64
+        Covariance at every lag of the periodic (padded) grid, lag 0 at index 0 and negative lags
+        wrapped to the end (``C[i] = C(min(i, m - i))`` for a symmetric model).
+    rng : numpy Generator
+        Source of the white noise: one ``standard_normal(covariance.shape)`` draw.
+
+    Returns
+    -------
+    ndarray of float64, shape of ``covariance``
+        The field on the whole periodic grid; crop it to the simulation grid. Negative
+        eigenvalues of the embedding are set to zero (see the module notes).
+    """
+    import scipy.fft  # imported on use: keeps `import strataloom` light
+
+    shape = covariance.shape
+    spectrum = scipy.fft.rfftn(covariance).real
+    np.maximum(spectrum, 0.0, out=spectrum)
+    noise = rng.standard_normal(shape)
+    return scipy.fft.irfftn(np.sqrt(spectrum) * scipy.fft.rfftn(noise), s=shape)
 
 
 @dataclass(frozen=True)

@@ -1,14 +1,11 @@
 """Writing training images: .npy arrays, VTK ImageData (.vti, XML) and a PNG of sections.
 
-The .vti writer follows the VTK XML file format (Kitware, "VTK File Formats", VTK User's Guide):
-an ``ImageData`` piece with cell data, raw binary arrays in an ``AppendedData`` block, each prefixed
-by its byte count as a UInt64. Grid axes (z, y, x) become VTK's (k, j, i), so a C-order
-``(nz, ny, nx)`` array is written as is.
+The ``.vti`` reader and writer are the project's one implementation in :mod:`strataloom.vti`,
+re-exported here (``spacing``/``origin`` keywords, several named cell arrays, int and float types).
 """
 
 from __future__ import annotations
 
-import xml.etree.ElementTree as ET
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -16,110 +13,9 @@ from typing import Any
 import numpy as np
 
 from .. import _validate as v
+from ..vti import read_vti, write_vti
 
 __all__ = ["read_vti", "write_sections_png", "write_vti"]
-
-_VTK_TYPES = {
-    np.dtype(np.int8): "Int8", np.dtype(np.uint8): "UInt8", np.dtype(np.int16): "Int16",
-    np.dtype(np.uint16): "UInt16", np.dtype(np.int32): "Int32", np.dtype(np.uint32): "UInt32",
-    np.dtype(np.int64): "Int64", np.dtype(np.uint64): "UInt64", np.dtype(np.float32): "Float32",
-    np.dtype(np.float64): "Float64",
-}
-_NP_TYPES = {name: dt for dt, name in _VTK_TYPES.items()}
-
-
-def write_vti(path: str | Path, arrays: Mapping[str, np.ndarray], *,
-              spacing: Sequence[float] = (1.0, 1.0, 1.0),
-              origin: Sequence[float] = (0.0, 0.0, 0.0)) -> Path:
-    """Write cell arrays of one grid to a VTK XML ImageData file.
-
-    Parameters
-    ----------
-    path : str or Path
-        Output file (``.vti``).
-    arrays : mapping of name to (nz, ny, nx) ndarray
-        Cell data; all arrays share one shape. The first is the active scalars.
-    spacing, origin : sequence of 3 float
-        ``(dz, dy, dx)`` and ``(z0, y0, x0)``, written in VTK's (x, y, z) order.
-
-    Returns
-    -------
-    Path
-    """
-    o = "write_vti"
-    if not arrays:
-        raise v.fail("arrays", "at least one named array", arrays, o)
-    vols = {str(k): v.as_volume(a, f"arrays[{k!r}]", owner=o) for k, a in arrays.items()}
-    shapes = {a.shape for a in vols.values()}
-    if len(shapes) != 1:
-        raise v.fail("arrays", "arrays of one shape", sorted(shapes), o)
-    nz, ny, nx = shapes.pop()
-    spc = v.triple(spacing, "spacing", float, owner=o)
-    org = v.triple(origin, "origin", float, owner=o)
-    blobs = []
-    root = ET.Element("VTKFile", type="ImageData", version="1.0", byte_order="LittleEndian",
-                      header_type="UInt64")
-    img = ET.SubElement(root, "ImageData", WholeExtent=f"0 {nx} 0 {ny} 0 {nz}",
-                        Origin=f"{org[2]!r} {org[1]!r} {org[0]!r}",
-                        Spacing=f"{spc[2]!r} {spc[1]!r} {spc[0]!r}")
-    piece = ET.SubElement(img, "Piece", Extent=f"0 {nx} 0 {ny} 0 {nz}")
-    cd = ET.SubElement(piece, "CellData", Scalars=next(iter(vols)))
-    offset = 0
-    for name, a in vols.items():
-        dt = np.dtype(a.dtype)
-        if dt == np.bool_:
-            dt = np.dtype(np.uint8)
-        if dt.newbyteorder("=") not in _VTK_TYPES:
-            raise v.fail_type(f"arrays[{name!r}]", "an integer or float array", a, o)
-        dt = dt.newbyteorder("=")
-        data = np.ascontiguousarray(a, dtype=dt.newbyteorder("<")).tobytes()
-        ET.SubElement(cd, "DataArray", type=_VTK_TYPES[dt], Name=name, NumberOfComponents="1",
-                      format="appended", offset=str(offset))
-        blob = np.uint64(len(data)).astype("<u8").tobytes() + data
-        blobs.append(blob)
-        offset += len(blob)
-    ET.SubElement(piece, "PointData")
-    head = ET.tostring(root, encoding="unicode")
-    head = head.replace("</VTKFile>", '<AppendedData encoding="raw">\n_')
-    p = Path(path)
-    with p.open("wb") as f:
-        f.write(b'<?xml version="1.0"?>\n')
-        f.write(head.encode("ascii"))
-        for b in blobs:
-            f.write(b)
-        f.write(b"\n</AppendedData>\n</VTKFile>\n")
-    return p
-
-
-def read_vti(path: str | Path,
-             ) -> tuple[dict[str, np.ndarray], tuple[float, ...], tuple[float, ...]]:
-    """Read a .vti written by `write_vti` (raw appended cell data).
-
-    Returns
-    -------
-    arrays : dict of name to (nz, ny, nx) ndarray
-    spacing, origin : tuple of 3 float, in (z, y, x) order
-    """
-    raw = Path(path).read_bytes()
-    start = raw.index(b'<AppendedData encoding="raw">')
-    under = raw.index(b"_", start) + 1
-    head = raw[:start].decode("ascii") + "</VTKFile>"
-    root = ET.fromstring(head)
-    img = root.find("ImageData")
-    if img is None or root.get("header_type") != "UInt64":
-        raise v.fail("path", "a .vti file of ImageData with UInt64 headers", str(path), "read_vti")
-    ext = [int(x) for x in img.get("WholeExtent", "").split()]
-    nx, ny, nz = ext[1] - ext[0], ext[3] - ext[2], ext[5] - ext[4]
-    sx, sy, sz = (float(x) for x in img.get("Spacing", "1 1 1").split())
-    ox, oy, oz = (float(x) for x in img.get("Origin", "0 0 0").split())
-    out = {}
-    for da in img.iter("DataArray"):
-        pos = under + int(da.get("offset", "0"))
-        n = int(np.frombuffer(raw, dtype="<u8", count=1, offset=pos)[0])
-        dt = _NP_TYPES[da.get("type", "")].newbyteorder("<")
-        a = np.frombuffer(raw, dtype=dt, count=n // dt.itemsize, offset=pos + 8)
-        out[da.get("Name", "")] = a.astype(dt.newbyteorder("=")).reshape(nz, ny, nx)
-    return out, (sz, sy, sx), (oz, oy, ox)
 
 
 def write_sections_png(path: str | Path, facies: np.ndarray, *,

@@ -5,8 +5,9 @@ axis (or top down with ``top_down=True``); negative = not logged. Every run of `
 consecutive logged cells is a pattern. The wells' pattern frequencies are compared with those of
 every column of each candidate TI by the Jensen-Shannon divergence (base 2, 0 for identical
 histograms, 1 for disjoint ones; Lin 1991, "Divergence measures based on the Shannon entropy", IEEE
-Trans. Inf. Theory 37(1)). Patterns seen in the wells that a TI never contains are listed: a TI
-that cannot produce a logged sequence contradicts the data.
+Trans. Inf. Theory 37(1); computed by :func:`strataloom.qc.pattern_divergence`). Patterns seen in
+the wells that a TI never contains are listed: a TI that cannot produce a logged sequence
+contradicts the data.
 """
 
 from __future__ import annotations
@@ -18,8 +19,11 @@ from typing import Any
 import numpy as np
 
 from .. import _validate as v
+from ..qc import js_divergence, pattern_divergence
 
 __all__ = ["Ranking", "pattern_histogram", "rank_training_images", "well_patterns"]
+
+jensen_shannon = js_divergence  # the project's one JS divergence, under this module's older name
 
 
 def _windows(seq: np.ndarray, length: int, base: int) -> np.ndarray:
@@ -70,19 +74,6 @@ def _wells(wells: Any) -> list[np.ndarray]:
 
 def _decode(p: int, length: int, base: int) -> tuple[int, ...]:
     return tuple(int(p // base ** (length - 1 - j) % base) for j in range(length))
-
-
-def jensen_shannon(p: np.ndarray, q: np.ndarray) -> float:
-    """Jensen-Shannon divergence (base 2) of two histograms on the same bins."""
-    p = p / p.sum()
-    q = q / q.sum()
-    m = (p + q) / 2
-
-    def kl(a: np.ndarray) -> float:
-        nz = a > 0
-        return float(np.sum(a[nz] * np.log2(a[nz] / m[nz])))
-
-    return max(0.5 * kl(p) + 0.5 * kl(q), 0.0)
 
 
 @dataclass
@@ -195,12 +186,7 @@ def rank_training_images(wells: Any, candidates: Mapping[str, Any] | Sequence[An
     divergence, missing, share = {}, {}, {}
     for name, a in tis:
         tp, tc = pattern_histogram(a, n, base, ax)
-        bins = np.union1d(wp, tp)
-        p = np.zeros(bins.size)
-        q = np.zeros(bins.size)
-        p[np.searchsorted(bins, wp)] = wc
-        q[np.searchsorted(bins, tp)] = tc
-        divergence[name] = jensen_shannon(p, q)
+        divergence[name] = pattern_divergence((wp, wc), (tp, tc))
         unseen = ~np.isin(wp, tp)
         order = np.argsort(-wc[unseen], kind="stable")
         missing[name] = [(_decode(int(x), n, base), int(c))

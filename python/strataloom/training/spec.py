@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import difflib
 import re
-import sys
+import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -23,11 +23,6 @@ from ..errors import ParameterError
 from .distributions import Distribution
 from .fields import MODELS, PropertyModel
 from .objects import _BODY_KINDS, _SECTIONS, Bodies, Channels, Levee
-
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover - Python 3.10 only
-    import tomli as tomllib
 
 __all__ = ["PropertySpec", "TISpec", "TISpecError", "load_spec", "parse_spec"]
 

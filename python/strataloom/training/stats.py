@@ -1,14 +1,16 @@
 """Statistics of training images: proportions, indicator variograms, connectivity, body sizes.
 
-Variograms are computed with FFTs over zero-padded arrays, which handles masked cells and the
-grid's edges exactly (Marcotte 1996, "Fast variogram computation with FFT", Computers &
-Geosciences 22(10)): with ``M`` the valid-cell mask and ``I`` the indicator,
+Variograms are computed with FFTs over zero-padded arrays (axis variograms by the kernel of
+:mod:`strataloom.variogram`), which handles masked cells and the grid's edges exactly (Marcotte
+1996, "Fast variogram computation with FFT", Computers & Geosciences 22(10)): with ``M`` the
+valid-cell mask and ``I`` the indicator,
 
     2 N(h) gamma(h) = sum M(x) M(x+h) (I(x) - I(x+h))**2,   N(h) = sum M(x) M(x+h),
 
 and each sum is a cross-correlation. Connected bodies are the components of
 `scipy.ndimage.label` with 6-connectivity (faces) or 26-connectivity (faces, edges, corners); in a
-plan view (nz = 1) these are 4- and 8-connectivity.
+plan view (nz = 1) these are 4- and 8-connectivity. Labels, body sizes and connectivity functions
+come from :mod:`strataloom.connectivity`; the functions here take a TI and a code.
 """
 
 from __future__ import annotations
@@ -20,6 +22,8 @@ from typing import Any
 import numpy as np
 
 from .. import _validate as v
+from .. import connectivity as _conn
+from ..variogram import axis_semivariograms
 
 __all__ = [
     "BodySizes",
@@ -69,6 +73,15 @@ def _axis(axis: Any, owner: str) -> int:
     return _AXES[axis]
 
 
+def _axis_lags(a: np.ndarray, axis: Any, max_lag: Any, owner: str) -> tuple[int, int]:
+    """The axis index and the largest lag (default half the axis, at most its length - 1)."""
+    ax = _axis(axis, owner)
+    n = a.shape[ax]
+    if max_lag is None:
+        return ax, max(n // 2, 1)
+    return ax, v.integer(max_lag, "max_lag", low=1, high=max(n - 1, 1), owner=owner)
+
+
 def proportions(ti: Any, ncodes: int | None = None) -> np.ndarray:
     """Share of each code 0..K-1 among the unmasked cells.
 
@@ -95,24 +108,10 @@ def proportions(ti: Any, ncodes: int | None = None) -> np.ndarray:
 def _axis_variograms(a: np.ndarray, codes: list[int], ax: int, lmax: int) -> np.ndarray:
     """Semivariograms along axis ``ax`` at lags 1..lmax of each code's indicator, shape (K, L).
 
-    The pair counts and squared differences are cross-correlations along the axis (zero padded),
-    summed over the other axes in the frequency domain before the inverse transform.
+    Unmasked cells (code >= 0) take part; the FFT kernel is
+    :func:`strataloom.variogram.axis_semivariograms`.
     """
-    size = _scipy.fft.next_fast_len(2 * a.shape[ax], real=True)
-    others = tuple(d for d in range(3) if d != ax)
-    m = (a >= 0).astype(np.float64)
-    fm = _scipy.fft.rfft(m, n=size, axis=ax)
-    pairs = _scipy.fft.irfft(np.sum(np.abs(fm) ** 2, axis=others), n=size)
-    lags = np.arange(1, lmax + 1)
-    npairs = np.rint(pairs[lags])
-    out = np.empty((len(codes), lmax))
-    for j, k in enumerate(codes):
-        fi = _scipy.fft.rfft((a == k).astype(np.float64), n=size, axis=ax)
-        spec = np.conj(fm) * fi + np.conj(fi) * fm - 2.0 * np.abs(fi) ** 2
-        num = _scipy.fft.irfft(np.sum(spec, axis=others), n=size)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            out[j] = np.where(npairs > 0, num[lags] / (2.0 * np.maximum(npairs, 1)), np.nan)
-    return np.maximum(out, 0.0)
+    return axis_semivariograms(((a == k) for k in codes), a >= 0, ax, lmax, indicator=True)
 
 
 def indicator_variogram(ti: Any, code: int, axis: Any = "x", max_lag: int | None = None,
@@ -139,10 +138,7 @@ def indicator_variogram(ti: Any, code: int, axis: Any = "x", max_lag: int | None
     o = "indicator_variogram"
     a = _codes(ti, o)
     k = _code(code, o)
-    ax = _axis(axis, o)
-    n = a.shape[ax]
-    lmax = max(n // 2, 1) if max_lag is None else v.integer(max_lag, "max_lag", low=1,
-                                                             high=max(n - 1, 1), owner=o)
+    ax, lmax = _axis_lags(a, axis, max_lag, o)
     return np.arange(1, lmax + 1), _axis_variograms(a, [k], ax, lmax)[0]
 
 
@@ -235,15 +231,17 @@ def anisotropy(ti: Any, code: int, max_lag: int | None = None, spacing: Any = (1
     return az, ratio
 
 
-def _structure(connectivity: Any, owner: str) -> np.ndarray:
-    if connectivity not in (6, 26) or isinstance(connectivity, bool):
-        raise v.fail("connectivity", "6 (faces) or 26 (faces, edges and corners)", connectivity,
-                     owner)
-    return _scipy.ndi.generate_binary_structure(3, 1 if connectivity == 6 else 3)
-
-
 def label_bodies(ti: Any, code: int, connectivity: int = 6) -> tuple[np.ndarray, int]:
-    """Connected bodies of one facies (`scipy.ndimage.label`).
+    """Connected bodies of one facies (:func:`strataloom.connectivity.label_bodies`).
+
+    Parameters
+    ----------
+    ti : (nz, ny, nx) or (ny, nx) array of int
+        Codes; negative values are masked.
+    code : int
+        The facies.
+    connectivity : {6, 26}, default 6
+        Neighbourhood: faces, or faces, edges and corners.
 
     Returns
     -------
@@ -254,16 +252,25 @@ def label_bodies(ti: Any, code: int, connectivity: int = 6) -> tuple[np.ndarray,
     """
     o = "label_bodies"
     a = _codes(ti, o)
-    labels, n = _scipy.ndi.label(a == _code(code, o), structure=_structure(connectivity, o))
-    return labels, int(n)
+    return _conn.label_bodies(a == _code(code, o), connectivity, owner=o)
 
 
 def connected_share(ti: Any, code: int, connectivity: int = 6) -> float:
-    """Share of the facies' cells in its largest connected body (0 when the facies is absent)."""
+    """Share of the facies' cells in its largest connected body (0 when the facies is absent).
+
+    Parameters
+    ----------
+    ti, code, connectivity
+        As in `label_bodies`.
+
+    Returns
+    -------
+    float
+    """
     labels, n = label_bodies(ti, code, connectivity)
     if n == 0:
         return 0.0
-    sizes = np.bincount(labels.ravel())[1:]
+    sizes = _conn.body_sizes(labels, n)[1:]
     return float(sizes.max() / sizes.sum())
 
 
@@ -272,7 +279,15 @@ def connectivity_function(ti: Any, code: int, axis: Any = "x", max_lag: int | No
     """Probability that two cells of a facies a lag apart along an axis are in one body.
 
     ``tau(h) = P(x and x + h connected | both in the facies)``, the connectivity function of
-    Allard (1994) and Renard & Allard (2013), Advances in Water Resources 51.
+    Allard (1994) and Renard & Allard (2013), Advances in Water Resources 51; computed by
+    :func:`strataloom.connectivity.connectivity_function` on the bodies of `label_bodies`.
+
+    Parameters
+    ----------
+    ti, code, connectivity
+        As in `label_bodies`.
+    axis, max_lag
+        As in `indicator_variogram`.
 
     Returns
     -------
@@ -281,28 +296,9 @@ def connectivity_function(ti: Any, code: int, axis: Any = "x", max_lag: int | No
     """
     o = "connectivity_function"
     a = _codes(ti, o)
-    ax = _axis(axis, o)
-    n = a.shape[ax]
-    lmax = max(n // 2, 1) if max_lag is None else v.integer(max_lag, "max_lag", low=1,
-                                                             high=max(n - 1, 1), owner=o)
+    ax, lmax = _axis_lags(a, axis, max_lag, o)
     labels, _ = label_bodies(a, code, connectivity)
-    return np.arange(1, lmax + 1), _tau(labels, ax, lmax)
-
-
-def _tau(labels: np.ndarray, ax: int, lmax: int) -> np.ndarray:
-    """Connectivity function along ``ax`` from body labels (0 = outside the facies)."""
-    lab = np.moveaxis(labels, ax, 0)
-    n = lab.shape[0]
-    tau = np.full(lmax, np.nan)
-    for j, h in enumerate(range(1, lmax + 1)):
-        if h >= n:
-            break
-        x, y = lab[:-h], lab[h:]
-        both = (x > 0) & (y > 0)
-        nb = np.count_nonzero(both)
-        if nb:
-            tau[j] = np.count_nonzero(both & (x == y)) / nb
-    return tau
+    return np.arange(1, lmax + 1), _conn.connectivity_function(labels, lmax, ax)
 
 
 @dataclass(frozen=True)
@@ -340,7 +336,19 @@ class BodySizes:
 
 def body_sizes(ti: Any, code: int, connectivity: int = 6, spacing: Any = (1.0, 1.0, 1.0),
                ) -> BodySizes:
-    """Cell counts and bounding boxes of the connected bodies of one facies."""
+    """Cell counts and bounding boxes of the connected bodies of one facies.
+
+    Parameters
+    ----------
+    ti, code, connectivity
+        As in `label_bodies`.
+    spacing : sequence of 3 float, default (1, 1, 1)
+        Cell sizes ``(dz, dy, dx)``, for the extents.
+
+    Returns
+    -------
+    BodySizes
+    """
     o = "body_sizes"
     spc = np.array(v.triple(spacing, "spacing", float, owner=o))
     labels, n = label_bodies(ti, code, connectivity)
@@ -350,7 +358,7 @@ def body_sizes(ti: Any, code: int, connectivity: int = 6, spacing: Any = (1.0, 1
 def _sizes(labels: np.ndarray, n: int, spc: np.ndarray) -> BodySizes:
     if n == 0:
         return BodySizes(0, np.zeros(0, dtype=np.int64), np.zeros((0, 3)))
-    cells = np.bincount(labels.ravel())[1:]
+    cells = _conn.body_sizes(labels, n)[1:]
     boxes = _scipy.ndi.find_objects(labels)
     extent = np.array([[s.stop - s.start for s in b] for b in boxes], dtype=float) * spc
     order = np.argsort(-cells, kind="stable")
@@ -422,7 +430,7 @@ def describe(ti: Any, *, spacing: Any = (1.0, 1.0, 1.0), connectivity: int = 6,
     o = "describe"
     a = _codes(ti, o)
     spc = v.triple(spacing, "spacing", float, owner=o)
-    structure = _structure(connectivity, o)
+    _conn.structure(connectivity, owner=o)
     if max_lag is not None:
         v.integer(max_lag, "max_lag", low=1, high=2**31 - 1, owner=o)
     if tau_lag is not None:
@@ -433,13 +441,14 @@ def describe(ti: Any, *, spacing: Any = (1.0, 1.0, 1.0), connectivity: int = 6,
     bodies = []
     taus: dict[str, list[np.ndarray]] = {name: [] for name, _ in axes}
     for k in range(len(p)):
-        labels, n = _scipy.ndi.label(a == k, structure=structure)
-        sizes = _sizes(labels, int(n), np.array(spc))
+        labels, n = _conn.label_bodies(a == k, connectivity, owner=o)
+        sizes = _sizes(labels, n, np.array(spc))
         bodies.append(sizes)
         share[k] = sizes.cells[0] / sizes.cells.sum() if n else 0.0
         if tau_lag is not None:
             for name, ax in axes:
-                taus[name].append(_tau(labels, ax, max(min(tau_lag, a.shape[ax] // 2), 1)))
+                lag = max(min(tau_lag, a.shape[ax] // 2), 1)
+                taus[name].append(_conn.connectivity_function(labels, lag, ax))
     grams = {}
     for name, ax in axes:
         lag = a.shape[ax] // 2 if max_lag is None else min(max_lag, a.shape[ax] - 1)

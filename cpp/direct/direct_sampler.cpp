@@ -1,0 +1,678 @@
+#include "direct/direct_sampler.hpp"
+
+#include <algorithm>
+#include <atomic>
+#include <chrono>
+#include <thread>
+#include <cmath>
+#include <cstring>
+#include <limits>
+#include <string>
+
+#if defined(__unix__) || defined(__APPLE__)
+#include <time.h>
+#define SL_THREAD_CLOCK 1
+#endif
+
+#include "core/error.hpp"
+#include "core/path.hpp"
+#include "core/random.hpp"
+
+// Every instruction-set version must round alike, so CMakeLists.txt builds this file with
+// -ffp-contract=off (no fused multiply-add) and -fno-math-errno (sqrt vectorises).
+
+// Kernels are compiled for several instruction sets and picked at load time by CPU features (GCC/Clang function
+// multi-versioning on x86-64 ELF); elsewhere they are plain C++ that the compiler vectorises.
+#if defined(__x86_64__) && defined(__ELF__) && (defined(__GNUC__) || defined(__clang__)) && !defined(STRATALOOM_NO_CLONES)
+#define SL_KERNEL __attribute__((target_clones("default", "arch=x86-64-v3", "arch=x86-64-v4")))
+#else
+#define SL_KERNEL
+#endif
+
+namespace sl::direct {
+
+namespace {
+
+// CPU time of the calling thread in seconds (0 where the platform has no thread clock).
+double thread_cpu_seconds() noexcept {
+#if defined(SL_THREAD_CLOCK) && defined(CLOCK_THREAD_CPUTIME_ID)
+  timespec ts{};
+  if (clock_gettime(CLOCK_THREAD_CPUTIME_ID, &ts) == 0) return static_cast<double>(ts.tv_sec) + 1e-9 * static_cast<double>(ts.tv_nsec);
+#endif
+  return 0.0;
+}
+
+// Lags evaluated between two checks of the early exit.
+constexpr int kChunk = 12;
+// Extra slots beyond each end of the stored arrays, on top of the lag reach, for the last block.
+constexpr std::int64_t kTail = 2 * kLanes;
+
+std::string str(std::int64_t v) { return std::to_string(v); }
+
+}  // namespace
+
+TrainingImage::TrainingImage(const Ijk& shape, const std::vector<const float*>& values, const std::vector<Kind>& kinds,
+                             const Offset& reach)
+    : shape_(shape), reach_(reach), kinds_(kinds) {
+  require(!values.empty() && values.size() == kinds.size(), "training_image",
+          "must hold one kind per variable and at least one variable.");
+  require(static_cast<int>(values.size()) <= kMaxVariables, "training_image",
+          "must hold at most " + str(kMaxVariables) + " variables.");
+  double padded = 1;
+  for (int a = 0; a < 3; ++a) {
+    require(shape[a] >= 1, "training_image", "must have a positive size along every axis.");
+    require(reach[a] >= 0 && reach[a] <= 4096, "search_radius", "must hold radii in [0, 4096] cells.");
+    padded_[a] = shape[a] + 2 * Index{reach[a]};
+    padded *= static_cast<double>(padded_[a]);
+  }
+  require(padded <= 2e9, "training_image", "is too large once padded by the search radius (over 2e9 cells).");
+  const std::int64_t total = padded_[0] * padded_[1] * padded_[2];
+  // Stride: one neighbourhood width along the fastest axis the lags move along.
+  const std::int64_t axis_stride[3] = {padded_[1] * padded_[2], padded_[2], 1};
+  stride_ = 1;
+  for (int a = 2; a >= 0; --a)
+    if (reach[a] > 0) {
+      stride_ = (2 * std::int64_t{reach[a]} + 1) * axis_stride[a];
+      break;
+    }
+  stride_ = std::min(stride_, total);
+  phase_length_ = (total + stride_ - 1) / stride_;
+  const std::int64_t slots = stride_ * phase_length_;
+  const std::int64_t reach_delta = padded_delta(reach);
+  margin_ = kTail + reach_delta / stride_ + 2;
+  const auto stored = static_cast<std::size_t>(slots + 2 * margin_);
+  informed_.assign(stored, 0);
+  values_.resize(values.size());
+  const Index n = size();
+  for (std::size_t v = 0; v < values.size(); ++v) {
+    require(values[v] != nullptr, "training_image", "is missing the data of a variable.");
+    const bool cat = kinds[v] == Kind::categorical;
+    auto& out = values_[v];
+    out.assign(stored, cat ? kMaskedCategory : kMaskedContinuous);
+    const float* in = values[v];
+    for (Index i = 0; i < n; ++i) {
+      const float x = in[i];
+      const bool ok = cat ? (x >= 0.0f) : !std::isnan(x);  // NaN >= 0 is false
+      if (!ok) continue;
+      require(std::isfinite(x), "training_image", "must hold finite values or NaN (masked).");
+      const auto e = static_cast<std::size_t>(slot(padded_index(i)) + margin_);
+      out[e] = x;
+      informed_[e] |= std::uint32_t{1} << v;
+    }
+  }
+  std::vector<std::uint8_t> real(static_cast<std::size_t>(slots), 0);
+  for (Index i = 0; i < n; ++i) real[static_cast<std::size_t>(slot(padded_index(i)))] = 1;
+  real_before_.assign(static_cast<std::size_t>(slots + 1), 0);
+  for (std::int64_t e = 0; e < slots; ++e)
+    real_before_[static_cast<std::size_t>(e + 1)] = real_before_[static_cast<std::size_t>(e)] + real[static_cast<std::size_t>(e)];
+}
+
+std::int64_t TrainingImage::padded_index(Index i) const noexcept {
+  const Index x = i % shape_[2];
+  const Index r = i / shape_[2];
+  return ((r / shape_[1] + reach_[0]) * padded_[1] + (r % shape_[1] + reach_[1])) * padded_[2] + reach_[2] + x;
+}
+
+Index TrainingImage::real_index(std::int64_t e) const noexcept {
+  const std::int64_t p = position(e);
+  const Index x = p % padded_[2] - reach_[2];
+  const Index y = (p / padded_[2]) % padded_[1] - reach_[1];
+  const Index z = p / (padded_[2] * padded_[1]) - reach_[0];
+  if (x < 0 || x >= shape_[2] || y < 0 || y >= shape_[1] || z < 0 || z >= shape_[0]) return -1;
+  return (z * shape_[1] + y) * shape_[2] + x;
+}
+
+Index TrainingImage::count_informed(std::uint32_t need) const noexcept {
+  Index count = 0;
+  for (Index i = 0; i < size(); ++i)
+    if ((informed()[slot(padded_index(i))] & need) == need) ++count;
+  return count;
+}
+
+namespace detail {
+
+#if defined(__GNUC__) || defined(__clang__)
+// 16 lanes as one vector value (GCC/Clang vector extensions): the compiler maps it to one AVX-512,
+// two AVX or four SSE registers, with no branch per lane.
+typedef float Lanes __attribute__((vector_size(kLanes * sizeof(float))));
+typedef std::int32_t LaneMask __attribute__((vector_size(kLanes * sizeof(float))));
+
+// Unaligned load of 16 lanes (a macro: a function returning a vector would change ABI per target).
+#define SL_LOAD_LANES(dst, src) std::memcpy(&(dst), (src), sizeof(Lanes))
+// Lane-wise m ? a : b.
+#define SL_SELECT(m, a, b) ((Lanes)((((LaneMask)(a)) & (m)) | (((LaneMask)(b)) & ~(m))))
+
+[[gnu::always_inline]] inline bool all_set(const LaneMask& m) noexcept {
+  std::uint64_t w[kLanes / 2];
+  std::memcpy(w, &m, sizeof w);
+  std::uint64_t r = ~std::uint64_t{0};
+  for (int i = 0; i < kLanes / 2; ++i) r &= w[i];
+  return r == ~std::uint64_t{0};
+}
+
+SL_KERNEL bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
+                              std::int64_t& comparisons) {
+  static constexpr std::int32_t kIota[kLanes] = {0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15};
+  LaneMask informed, lane;
+  std::memcpy(&informed, node.informed + p, sizeof informed);
+  std::memcpy(&lane, kIota, sizeof lane);
+  const LaneMask need = LaneMask{} + static_cast<std::int32_t>(node.need);
+  const LaneMask valid = ((informed & need) == need) & (lane < lanes);
+  const Lanes inf = Lanes{} + std::numeric_limits<float>::infinity();
+  const Lanes zero = Lanes{};
+  const Lanes one = zero + 1.0f;
+  const Lanes minus_one = zero - 1.0f;
+  // (A block with no usable candidate is skipped by the caller's count of real cells; one whose real
+  // cells all lack a needed variable is left to the lane masks: it ends as all +inf.)
+  const bool prune = best < std::numeric_limits<float>::infinity();
+  const Lanes best_v = zero + best;
+  Lanes base = zero;
+  for (int a = 0; a < node.count; ++a) {
+    const LagSet& lags = *node.lags[static_cast<std::size_t>(a)];
+    const float* ti = node.data[static_cast<std::size_t>(a)] + p;
+    const bool cat = node.categorical[static_cast<std::size_t>(a)];
+    const float sum = node.sum[static_cast<std::size_t>(a)];
+    Lanes lim = minus_one;
+    if (prune) {
+      // A candidate is out once this variable alone adds more than the room left below `best`.
+      const Lanes room = (best_v - base) * node.inv_share[static_cast<std::size_t>(a)];
+      const Lanes scaled = cat ? room * sum : room * room * sum;
+      const LaneMask open = valid & (room > zero);
+      lim = SL_SELECT(open, scaled, minus_one);
+    }
+    // Two partial sums (even and odd lags) halve the add latency chain; their order is fixed.
+    Lanes acc = zero, even = zero, odd = zero;
+    const std::int64_t* delta = lags.delta.data();
+    const float* value = lags.value.data();
+    const float* weight = lags.weight.data();
+    for (int k0 = 0; k0 < lags.size; k0 += kChunk) {
+      const int k1 = std::min(k0 + kChunk, lags.size);
+      if (cat) {
+        for (int k = k0; k < k1; ++k) {
+          Lanes t;
+          SL_LOAD_LANES(t, ti + delta[k]);
+          const LaneMask differs = t != value[k];
+          const Lanes term = (Lanes)(differs & (LaneMask)(zero + weight[k]));
+          if ((k & 1) == 0)
+            even += term;
+          else
+            odd += term;
+        }
+      } else {
+        for (int k = k0; k < k1; ++k) {
+          Lanes t;
+          SL_LOAD_LANES(t, ti + delta[k]);
+          const Lanes d = t - value[k];
+          const Lanes sq = d * d;
+          const Lanes clamped = SL_SELECT(sq < one, sq, one);
+          const Lanes term = weight[k] * clamped;  // separate statements: no fused multiply-add
+          if ((k & 1) == 0)
+            even += term;
+          else
+            odd += term;
+        }
+      }
+      acc = even + odd;
+      comparisons += std::int64_t{lanes} * (k1 - k0);
+      if (prune) {
+        const LaneMask out_of_reach = acc > lim;
+        if (all_set(out_of_reach)) return false;
+      }
+    }
+    float m[kLanes];
+    const Lanes mean = acc / sum;
+    std::memcpy(m, &mean, sizeof m);
+    if (!cat)
+      for (int j = 0; j < kLanes; ++j) m[j] = std::sqrt(m[j]);
+    Lanes part;
+    std::memcpy(&part, m, sizeof part);
+    const Lanes weighted = node.share[static_cast<std::size_t>(a)] * part;
+    base += weighted;
+  }
+  const Lanes result = SL_SELECT(valid, base, inf);
+  std::memcpy(out, &result, sizeof result);
+  return true;
+}
+#else
+bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
+                    std::int64_t& comparisons) {
+  bool valid[kLanes], any = false;
+  for (int j = 0; j < kLanes; ++j) {
+    valid[j] = j < lanes && (node.informed[p + j] & node.need) == node.need;
+    any |= valid[j];
+  }
+  if (!any) return false;
+  const bool prune = best < std::numeric_limits<float>::infinity();
+  float base[kLanes] = {}, acc[kLanes], lim[kLanes], even[kLanes], odd[kLanes];
+  for (int a = 0; a < node.count; ++a) {
+    const LagSet& lags = *node.lags[static_cast<std::size_t>(a)];
+    const float* ti = node.data[static_cast<std::size_t>(a)] + p;
+    const bool cat = node.categorical[static_cast<std::size_t>(a)];
+    const float sum = node.sum[static_cast<std::size_t>(a)];
+    for (int j = 0; j < kLanes; ++j) {
+      const float room = (best - base[j]) * node.inv_share[static_cast<std::size_t>(a)];
+      lim[j] = !prune || !valid[j] || !(room > 0) ? -1.0f : (cat ? room * sum : room * room * sum);
+      acc[j] = even[j] = odd[j] = 0;
+    }
+    for (int k0 = 0; k0 < lags.size; k0 += kChunk) {
+      const int k1 = std::min(k0 + kChunk, lags.size);
+      for (int k = k0; k < k1; ++k) {
+        const float* t = ti + lags.delta[static_cast<std::size_t>(k)];
+        const float v = lags.value[static_cast<std::size_t>(k)], w = lags.weight[static_cast<std::size_t>(k)];
+        float* part = (k & 1) == 0 ? even : odd;
+        for (int j = 0; j < kLanes; ++j) {
+          const float d = t[j] - v;
+          const float term = cat ? (t[j] != v ? w : 0.0f) : w * std::min(d * d, 1.0f);
+          part[j] += term;
+        }
+      }
+      for (int j = 0; j < kLanes; ++j) acc[j] = even[j] + odd[j];
+      comparisons += std::int64_t{lanes} * (k1 - k0);
+      if (prune) {
+        bool all_out = true;
+        for (int j = 0; j < kLanes; ++j) all_out &= acc[j] > lim[j];
+        if (all_out) return false;
+      }
+    }
+    for (int j = 0; j < kLanes; ++j) {
+      const float m = acc[j] / sum;
+      const float part = node.share[static_cast<std::size_t>(a)] * (cat ? m : std::sqrt(m));
+      base[j] += part;
+    }
+  }
+  for (int j = 0; j < kLanes; ++j) out[j] = valid[j] ? base[j] : std::numeric_limits<float>::infinity();
+  return true;
+}
+#endif
+
+Index scan_start(std::uint64_t seed, Index cell, Index n) noexcept {
+  const double u = to_unit(random_bits(seed, 0, static_cast<std::uint64_t>(cell), Stream::start));
+  const auto s = static_cast<Index>(u * static_cast<double>(n));
+  return std::min(s, n - 1);
+}
+
+}  // namespace detail
+
+namespace {
+
+// Per-worker scratch and counters, on their own cache lines.
+struct alignas(64) Worker {
+  std::vector<detail::LagSet> lags;
+  detail::NodeView view;
+  Stats stats;
+};
+
+// One search-window offset seen from the grid and from the TI.
+struct Look {
+  Offset lag;
+  std::int64_t grid_delta;
+  std::int64_t ti_delta;  // padded offset = q * stride + r, 0 <= r < stride
+  std::int64_t q;
+  std::int64_t r;
+  float weight;
+};
+
+class Simulation {
+ public:
+  Simulation(const TrainingImage& ti, const Grid& grid, const std::vector<float*>& state,
+             const std::vector<bool>& auxiliary, const Params& params, std::int64_t* source)
+      : ti_(ti), grid_(grid), state_(state), auxiliary_(auxiliary), params_(params), source_(source) {
+    nvar_ = ti.variables();
+    looks_.reserve(params.search.size());
+    for (const Offset& o : params.search) {
+      const double h = std::sqrt(double(o[0]) * o[0] + double(o[1]) * o[1] + double(o[2]) * o[2]);
+      const auto w = static_cast<float>(std::pow(1.0 + h, -params.lag_power));
+      const std::int64_t d = ti.padded_delta(o), st = ti.stride();
+      const std::int64_t q = d >= 0 ? d / st : -((-d + st - 1) / st);
+      looks_.push_back({o, (std::int64_t{o[0]} * grid.shape()[1] + o[1]) * grid.shape()[2] + o[2], d, q, d - q * st, w});
+    }
+    const Index n = ti.size();
+    limit_ = std::clamp<Index>(static_cast<Index>(std::ceil(params.scan_fraction * static_cast<double>(n))), 1, n);
+    accept_ = static_cast<float>(params.accept_distance);
+  }
+
+  Worker make_worker() const {
+    Worker w;
+    w.lags.resize(static_cast<std::size_t>(nvar_));
+    for (auto& l : w.lags) {
+      const auto cap = static_cast<std::size_t>(params_.neighbors) + 1;
+      l.delta.resize(cap);
+      l.q.resize(cap);
+      l.r.resize(cap);
+      l.value.resize(cap);
+      l.weight.resize(cap);
+    }
+    w.view.informed = ti_.informed();
+    return w;
+  }
+
+  // Mask of the variables a node must receive (non-auxiliary and unknown).
+  std::uint32_t need_at(Index c) const noexcept {
+    std::uint32_t need = 0;
+    for (int v = 0; v < nvar_; ++v)
+      if (!auxiliary_[static_cast<std::size_t>(v)] && std::isnan(state_[static_cast<std::size_t>(v)][c]))
+        need |= std::uint32_t{1} << v;
+    return need;
+  }
+
+  // Simulates the node at path position `pos`; false when the run was cancelled meanwhile.
+  bool node(Index c, std::int64_t pos, Worker& w) const {
+    const std::uint32_t need = need_at(c);
+    if (!need) return true;
+    const double t0 = thread_cpu_seconds();
+    if (!gather(c, pos, w)) return false;
+    Index src = -1;
+    float dist = 0;
+    const bool accepted = scan(c, need, w, src, dist);
+    if (src < 0) throw ParameterError("training_image", "has no cell informed in every variable a node needs.");
+    const std::int64_t e = ti_.slot(ti_.padded_index(src));
+    for (int v = 0; v < nvar_; ++v)
+      if (need & (std::uint32_t{1} << v)) state_[static_cast<std::size_t>(v)][c] = ti_.data(v)[e];
+    source_[c] = src;
+    w.stats.cpu_seconds += thread_cpu_seconds() - t0;
+    ++w.stats.nodes;
+    w.stats.distance_sum += dist;
+    if (accepted) {
+      ++w.stats.accepted;
+      if (dist == 0.0f) ++w.stats.exact;
+    }
+    return true;
+  }
+
+  // Path order and completion flags: cell -> position on the path (-1 when not simulated), the
+  // variables that node will receive, and whether it is done. Set before the run.
+  void set_schedule(const std::int64_t* order, const std::uint32_t* need_of, const std::atomic<std::uint8_t>* done,
+                    const WorkControl* ctl) {
+    order_ = order;
+    need_of_ = need_of;
+    done_ = done;
+    ctl_ = ctl;
+  }
+
+ private:
+  // Waits until the node at cell g is done; false when the run is cancelled first.
+  bool wait_for(Index g, Worker& w) const {
+    if (done_[g].load(std::memory_order_acquire)) return true;
+    ++w.stats.waits;
+    for (int spin = 0;; ++spin) {
+      if (done_[g].load(std::memory_order_acquire)) return true;
+      if (ctl_->cancelled()) return false;
+      if (spin >= 64) std::this_thread::yield();
+    }
+  }
+
+  // The n nearest informed nodes per variable: the node itself when informed, then the search
+  // window in its order (nearest first), stopping once every variable has n.
+  // Reads exactly what a one-thread run in path order would see: a cell that is a node of the path
+  // counts only when it comes earlier on the path, and then its values are waited for.
+  bool gather(Index c, std::int64_t pos, Worker& w) const {
+    const int n = params_.neighbors;
+    int open = 0;
+    for (int v = 0; v < nvar_; ++v) {
+      auto& l = w.lags[static_cast<std::size_t>(v)];
+      l.size = 0;
+      l.weight_sum = 0;
+      const float x = state_[static_cast<std::size_t>(v)][c];
+      if (!std::isnan(x)) {
+        l.delta[0] = 0;
+        l.q[0] = 0;
+        l.r[0] = 0;
+        l.value[0] = x;
+        l.weight[0] = 1.0f;
+        l.size = 1;
+        l.weight_sum = 1.0;
+      }
+      if (l.size < n) ++open;
+    }
+    const Ijk at = grid_.cell(c);
+    const Ijk& shape = grid_.shape();
+    for (const Look& look : looks_) {
+      if (open == 0) break;
+      const Index z = at[0] + look.lag[0], y = at[1] + look.lag[1], x = at[2] + look.lag[2];
+      if (z < 0 || z >= shape[0] || y < 0 || y >= shape[1] || x < 0 || x >= shape[2]) continue;
+      const Index g = c + look.grid_delta;
+      const std::int64_t og = order_[g];
+      // A node later on the path has only its given variables yet; an earlier one must be done.
+      const std::uint32_t pending = og > pos ? need_of_[g] : 0;
+      if (og >= 0 && og < pos && !wait_for(g, w)) return false;
+      for (int v = 0; v < nvar_; ++v) {
+        auto& l = w.lags[static_cast<std::size_t>(v)];
+        if (l.size >= n || (pending & (std::uint32_t{1} << v))) continue;
+        const float val = state_[static_cast<std::size_t>(v)][g];
+        if (std::isnan(val)) continue;
+        const auto k = static_cast<std::size_t>(l.size++);
+        l.delta[k] = look.ti_delta;
+        l.q[k] = look.q;
+        l.r[k] = look.r;
+        l.value[k] = val;
+        l.weight[k] = look.weight;
+        l.weight_sum += look.weight;
+        if (l.size == n) --open;
+      }
+    }
+    double total = 0;
+    for (int v = 0; v < nvar_; ++v)
+      if (w.lags[static_cast<std::size_t>(v)].size > 0) total += params_.weights[static_cast<std::size_t>(v)];
+    auto& view = w.view;
+    view.count = 0;
+    for (int v = 0; v < nvar_; ++v) {
+      const auto& l = w.lags[static_cast<std::size_t>(v)];
+      if (l.size == 0) continue;
+      const auto a = static_cast<std::size_t>(view.count++);
+      view.data[a] = ti_.data(v);
+      view.lags[a] = &l;
+      view.share[a] = static_cast<float>(params_.weights[static_cast<std::size_t>(v)] / total);
+      view.inv_share[a] = 1.0f / view.share[a];
+      view.sum[a] = static_cast<float>(l.weight_sum);
+      view.categorical[a] = ti_.kind(v) == Kind::categorical;
+    }
+    return true;
+  }
+
+  // Scans the TI from the node's random start; returns true when a candidate was accepted.
+  // Sets the slot offsets of every lag for scan phase `phase`.
+  static void enter_phase(const TrainingImage& ti, Worker& w, std::int64_t phase) {
+    for (auto& l : w.lags)
+      for (int k = 0; k < l.size; ++k)
+        l.delta[static_cast<std::size_t>(k)] =
+            ti.phase_delta(l.q[static_cast<std::size_t>(k)], l.r[static_cast<std::size_t>(k)], phase);
+  }
+
+  bool scan(Index c, std::uint32_t need, Worker& w, Index& src, float& dist) const {
+    const Index n = ti_.size();
+    const std::int64_t s = ti_.stride(), K = ti_.phase_length();
+    const std::uint32_t* before = ti_.real_before();
+    w.view.need = need;
+    float best = std::numeric_limits<float>::infinity();
+    Index best_src = -1;
+    const std::int64_t e0 = ti_.slot(ti_.padded_index(detail::scan_start(params_.seed, c, n)));
+    std::int64_t phase = e0 / K, k = e0 % K;
+    enter_phase(ti_, w, phase);
+    Index scanned = 0;
+    float d[kLanes];
+    Stats& st = w.stats;
+    while (scanned < n) {
+      const std::int64_t e = phase * K + k;
+      int lanes = static_cast<int>(std::min<std::int64_t>(kLanes, K - k));
+      Index real = before[e + lanes] - before[e];
+      const Index left = scanned < limit_ ? limit_ - scanned : n - scanned;
+      if (real > left) {  // stop exactly at the limit
+        lanes = 0;
+        while (static_cast<Index>(before[e + lanes] - before[e]) < left) ++lanes;
+        real = left;
+      }
+      st.candidates += real;
+      if (real > 0 && detail::evaluate_block(w.view, e, lanes, best, d, st.comparisons)) {
+        if (scanned >= limit_) {
+          // Past the limit with nothing usable seen: the first informed candidate is taken.
+          for (int j = 0; j < lanes; ++j)
+            if (d[j] < std::numeric_limits<float>::infinity()) {
+              src = ti_.real_index(e + j);
+              dist = d[j];
+              return d[j] <= accept_;
+            }
+        }
+        for (int j = 0; j < lanes; ++j) {
+          if (d[j] <= accept_) {
+            src = ti_.real_index(e + j);
+            dist = d[j];
+            return true;
+          }
+          if (d[j] < best) {
+            best = d[j];
+            best_src = ti_.real_index(e + j);
+          }
+        }
+      }
+      scanned += real;
+      k += lanes;
+      if (k == K) {
+        k = 0;
+        if (++phase == s) phase = 0;
+        enter_phase(ti_, w, phase);
+      }
+      if (scanned >= limit_ && best_src >= 0) break;
+    }
+    src = best_src;
+    dist = best;
+    return false;
+  }
+
+  const TrainingImage& ti_;
+  const Grid& grid_;
+  const std::vector<float*>& state_;
+  const std::vector<bool>& auxiliary_;
+  const Params& params_;
+  std::int64_t* source_;
+  int nvar_ = 0;
+  std::vector<Look> looks_;
+  Index limit_ = 1;
+  float accept_ = 0;
+  const std::int64_t* order_ = nullptr;
+  const std::uint32_t* need_of_ = nullptr;
+  const std::atomic<std::uint8_t>* done_ = nullptr;
+  const WorkControl* ctl_ = nullptr;
+};
+
+void check(const TrainingImage& ti, const Grid& grid, const std::vector<float*>& state, const std::vector<bool>& auxiliary,
+           const Params& params, const std::int64_t* source) {
+  const int nvar = ti.variables();
+  require(static_cast<int>(state.size()) == nvar, "hard", "must give one grid array per training-image variable.");
+  require(static_cast<int>(auxiliary.size()) == nvar, "auxiliary", "must flag every training-image variable.");
+  require(static_cast<int>(params.weights.size()) == nvar, "weights", "must hold one weight per variable.");
+  require(source != nullptr, "source", "must be given.");
+  for (int v = 0; v < nvar; ++v) {
+    require(state[static_cast<std::size_t>(v)] != nullptr, "hard", "is missing the grid array of a variable.");
+    const double w = params.weights[static_cast<std::size_t>(v)];
+    require(std::isfinite(w) && w > 0, "weights", "must hold finite positive numbers.");
+  }
+  require(params.neighbors >= 1 && params.neighbors <= 100000, "neighbors", "must be an integer in [1, 100000].");
+  require(params.accept_distance >= 0 && params.accept_distance <= 1, "accept_distance", "must be a number in [0, 1].");
+  require(params.scan_fraction > 0 && params.scan_fraction <= 1, "scan_fraction", "must be a number in (0, 1].");
+  require(std::isfinite(params.lag_power) && params.lag_power >= 0, "lag_power", "must be a finite number >= 0.");
+  require(params.max_batch >= 1, "max_batch", "must be at least 1.");
+  for (const Offset& o : params.search)
+    for (int a = 0; a < 3; ++a)
+      require(std::abs(o[a]) <= ti.reach()[a], "search_radius",
+              "reaches beyond the padding of the training image; build the image with the same radius.");
+  bool simulated = false;
+  for (int v = 0; v < nvar; ++v) simulated |= !auxiliary[static_cast<std::size_t>(v)];
+  require(simulated, "auxiliary", "must leave at least one variable to simulate.");
+  const Index cells = grid.size();
+  for (int v = 0; v < nvar; ++v) {
+    if (!auxiliary[static_cast<std::size_t>(v)]) continue;
+    const float* s = state[static_cast<std::size_t>(v)];
+    for (Index i = 0; i < cells; ++i)
+      require(!std::isnan(s[i]), "auxiliary", "must be informed at every grid node; variable " + str(v) +
+                                                  " is unknown at cell " + str(i) + ".");
+  }
+}
+
+}  // namespace
+
+Stats simulate(const TrainingImage& ti, const Grid& grid, const std::vector<float*>& state,
+               const std::vector<bool>& auxiliary, const Params& params, std::int64_t* source, WorkControl& ctl,
+               const Poll& poll) {
+  check(ti, grid, state, auxiliary, params, source);
+  const auto t0 = std::chrono::steady_clock::now();
+  Simulation sim(ti, grid, state, auxiliary, params, source);
+  const Index cells = grid.size();
+  std::fill(source, source + cells, std::int64_t{-1});
+
+  std::uint32_t all = 0;
+  for (int v = 0; v < ti.variables(); ++v)
+    if (!auxiliary[static_cast<std::size_t>(v)]) all |= std::uint32_t{1} << v;
+  std::vector<Index> path;
+  std::vector<std::uint32_t> need_of(static_cast<std::size_t>(cells), 0);
+  bool any_full = false;
+  for (Index c = 0; c < cells; ++c) {
+    const std::uint32_t need = sim.need_at(c);
+    need_of[static_cast<std::size_t>(c)] = need;
+    if (need) path.push_back(c);
+    any_full |= need == all;
+  }
+  if (!path.empty()) {
+    // A node missing every variable needs a TI cell informed in all of them; others need a subset.
+    const Index usable = ti.count_informed(any_full ? all : 0);
+    require(usable > 0, "training_image",
+            "has no cell where every simulated variable is informed; at least one is needed to copy from.");
+  }
+  ctl.total = static_cast<std::int64_t>(path.size());
+
+  // Path order. Random: shuffled, then reordered into conflict-free batches (nodes of one batch
+  // cannot see each other), which spreads consecutive nodes apart so that workers rarely wait on
+  // each other. Sweep: flat order, a unilateral scheme in which every node depends on the previous
+  // one, so it runs on one thread.
+  int threads = resolve_threads(params.threads);
+  if (params.path == PathKind::random) {
+    shuffle_path(path, params.seed, 0);
+    Offset reach{0, 0, 0};
+    for (const Offset& o : params.search)
+      for (int a = 0; a < 3; ++a) reach[a] = std::max(reach[a], std::abs(o[a]));
+    conflict_free_batches(grid, 0, reach, path, params.max_batch);
+  } else {
+    threads = 1;
+  }
+  threads = static_cast<int>(std::clamp<std::int64_t>(static_cast<std::int64_t>(path.size()), 1, threads));
+  // The result is that of one thread visiting the path in order: a node waits only for the earlier
+  // nodes it reads (no barrier between batches, so a worker the system pauses holds up only the nodes
+  // that need its node), which makes it the same for any number of threads.
+  std::vector<std::int64_t> order(static_cast<std::size_t>(cells), -1);
+  for (std::size_t i = 0; i < path.size(); ++i) order[static_cast<std::size_t>(path[i])] = static_cast<std::int64_t>(i);
+  std::vector<std::atomic<std::uint8_t>> done(static_cast<std::size_t>(cells));
+  sim.set_schedule(order.data(), need_of.data(), done.data(), &ctl);
+  std::vector<Worker> workers;
+  for (int i = 0; i < threads; ++i) workers.push_back(sim.make_worker());
+  std::atomic<std::int64_t> next{0};
+  const auto count = static_cast<std::int64_t>(path.size());
+  run_supervised(
+      threads,
+      [&](int worker, int) {
+        Worker& w = workers[static_cast<std::size_t>(worker)];
+        while (!ctl.cancelled()) {
+          const std::int64_t pos = next.fetch_add(1, std::memory_order_relaxed);
+          if (pos >= count) return;
+          const Index c = path[static_cast<std::size_t>(pos)];
+          if (!sim.node(c, pos, w)) return;
+          done[static_cast<std::size_t>(c)].store(1, std::memory_order_release);
+          ctl.done.fetch_add(1, std::memory_order_relaxed);
+        }
+      },
+      ctl, poll);
+  Stats total;
+  for (const Worker& w : workers) {
+    total.nodes += w.stats.nodes;
+    total.candidates += w.stats.candidates;
+    total.comparisons += w.stats.comparisons;
+    total.accepted += w.stats.accepted;
+    total.exact += w.stats.exact;
+    total.waits += w.stats.waits;
+    total.distance_sum += w.stats.distance_sum;
+    total.cpu_seconds += w.stats.cpu_seconds;
+  }
+  total.threads = threads;
+  total.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  return total;
+}
+
+}  // namespace sl::direct

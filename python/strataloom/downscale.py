@@ -1,0 +1,184 @@
+"""Downscaling by direct sampling with a coarse field as auxiliary variable.
+
+A training pair (coarse, fine) on one region teaches how fine-scale patterns sit inside coarse
+blocks; elsewhere, given only the coarse field, fine-scale realizations are drawn whose block means
+follow it. The coarse field enters the distance as an auxiliary variable on both the training image
+and the simulation grid, interpolated linearly between block centres onto the fine cells.
+
+Why interpolated rather than repeated over each block: a repeated (piecewise constant) coarse field
+has steps at block edges, and matching those steps ties each copy to TI locations at the same
+position inside a block, a sixteenth of the candidates for 4 x 4 blocks. Measured on invented
+Gaussian fields (4 x 4 blocks): repeated, the fine variance came out 20 % low and the lag-1
+variogram 10-60 % high; interpolated, variance within 2 % and lag-1 variogram within 8 %.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from . import _validate as v
+from .direct import DirectSampler
+
+__all__ = ["block_means", "downscale"]
+
+_OWNER = "downscale"
+
+
+def block_means(fine: Any, factor: Any) -> np.ndarray:
+    """Means of a fine field over blocks of ``factor`` cells per axis.
+
+    Parameters
+    ----------
+    fine : (nz, ny, nx) or (ny, nx) ndarray
+        Its shape must be a multiple of ``factor`` along each axis.
+    factor : int or sequence of int
+        Block size per axis (one int for all axes of ``fine``).
+
+    Returns
+    -------
+    ndarray of float64, ``fine.shape // factor``.
+    """
+    a = np.asarray(fine, dtype=np.float64)
+    f = _factor(factor, a.ndim, "factor", "block_means")
+    if any(n % k for n, k in zip(a.shape, f, strict=True)):
+        raise v.fail(
+            "fine",
+            f"an array whose shape is a multiple of the factor {f}",
+            f"an array of shape {a.shape}",
+            "block_means",
+        )
+    split = []
+    for n, k in zip(a.shape, f, strict=True):
+        split += [n // k, k]
+    return a.reshape(split).mean(axis=tuple(range(1, 2 * a.ndim, 2)))
+
+
+def downscale(
+    coarse_train: Any,
+    fine_train: Any,
+    coarse_target: Any,
+    *,
+    realizations: int = 1,
+    neighbors: int = 12,
+    accept_distance: float = 0.01,
+    scan_fraction: float = 0.5,
+    search_radius: Any = None,
+    lag_power: float = 2.0,
+    coarse_weight: float = 1.0,
+    match_block_means: bool = False,
+    seed: int = 0,
+    threads: int | None = None,
+) -> np.ndarray:
+    """Fine-scale realizations whose block means follow a coarse field.
+
+    Parameters
+    ----------
+    coarse_train, fine_train : ndarray
+        The training pair: ``fine_train`` has ``factor`` times the shape of ``coarse_train``
+        along each axis (2-D or 3-D, float).
+    coarse_target : ndarray
+        The coarse field to downscale (same number of axes), fully informed.
+    realizations : int, default 1
+        Number of realizations (seeds ``seed, seed + 1, ...``).
+    neighbors, accept_distance, scan_fraction, search_radius, lag_power
+        Passed to `DirectSampler`.
+    coarse_weight : float, default 1
+        Weight of the coarse variable in the distance (the fine variable has weight 1).
+    match_block_means : bool, default False
+        Add to each block the difference between the coarse value and the block mean, so block
+        means equal the coarse field exactly (this may leave steps at block edges).
+    seed : int, default 0
+    threads : int, optional
+
+    Returns
+    -------
+    ndarray of float64, ``(realizations,) + fine shape``, the fine shape being ``factor`` times
+    ``coarse_target.shape``.
+    """
+    ct = _float_array(coarse_train, "coarse_train")
+    ft = _float_array(fine_train, "fine_train")
+    cg = _float_array(coarse_target, "coarse_target")
+    if ct.ndim != ft.ndim or cg.ndim != ct.ndim:
+        raise v.fail(
+            "coarse_target",
+            f"an array with {ct.ndim} axes like coarse_train and fine_train",
+            f"an array of shape {cg.shape}",
+            _OWNER,
+        )
+    if any(f % c for f, c in zip(ft.shape, ct.shape, strict=True)):
+        raise v.fail(
+            "fine_train",
+            f"an array whose shape is a multiple of coarse_train's {ct.shape}",
+            f"an array of shape {ft.shape}",
+            _OWNER,
+        )
+    factor = tuple(f // c for f, c in zip(ft.shape, ct.shape, strict=True))
+    if np.isnan(cg).any():
+        raise v.fail(
+            "coarse_target",
+            "fully informed (no NaN)",
+            f"{int(np.isnan(cg).sum())} NaN cells",
+            _OWNER,
+        )
+    n = v.integer(realizations, "realizations", low=1, high=100000, owner=_OWNER)
+    cw = v.real(coarse_weight, "coarse_weight", low=0, low_open=True, high=1e6, owner=_OWNER)
+    if not isinstance(match_block_means, bool):
+        raise v.fail_type("match_block_means", "a bool", match_block_means, _OWNER)
+    sd = v.seed(seed, owner=_OWNER)
+    sampler = DirectSampler(
+        {"fine": ft, "coarse": _interpolate(ct, factor)},
+        neighbors=neighbors,
+        accept_distance=accept_distance,
+        scan_fraction=scan_fraction,
+        search_radius=search_radius,
+        lag_power=lag_power,
+        weights={"fine": 1.0, "coarse": cw},
+        auxiliary=["coarse"],
+    )
+    coarse_fine = _interpolate(cg, factor)
+    out = np.empty((n, *coarse_fine.shape))
+    for r in range(n):
+        sim = sampler.simulate(
+            coarse_fine.shape, auxiliary={"coarse": coarse_fine}, seed=sd + r, threads=threads
+        )["fine"]
+        if match_block_means:
+            sim = sim + _repeat(cg - block_means(sim, factor), factor)
+        out[r] = sim
+    return out
+
+
+def _interpolate(a: np.ndarray, factor: tuple[int, ...]) -> np.ndarray:
+    """Linear interpolation between block centres onto the fine cells, flat past the outer ones."""
+    out = a
+    for axis, k in enumerate(factor):
+        n = out.shape[axis]
+        centres = (np.arange(n) + 0.5) * k
+        fine = np.arange(n * k) + 0.5
+        out = np.apply_along_axis(lambda line, c=centres, x=fine: np.interp(x, c, line), axis, out)
+    return np.ascontiguousarray(out)
+
+
+def _repeat(a: np.ndarray, factor: tuple[int, ...]) -> np.ndarray:
+    for axis, k in enumerate(factor):
+        a = np.repeat(a, k, axis=axis)
+    return np.ascontiguousarray(a)
+
+
+def _float_array(a: Any, name: str) -> np.ndarray:
+    arr = np.asarray(a)
+    if not np.issubdtype(arr.dtype, np.number):
+        raise v.fail_type(name, "a numeric array", arr, _OWNER)
+    if arr.ndim not in (2, 3) or arr.size == 0:
+        raise v.fail(name, "a non-empty 2-D or 3-D array", f"an array of shape {arr.shape}", _OWNER)
+    return arr.astype(np.float64)
+
+
+def _factor(factor: Any, ndim: int, name: str, owner: str) -> tuple[int, ...]:
+    if isinstance(factor, (int, np.integer)) and not isinstance(factor, bool):
+        return (v.integer(factor, name, low=1, owner=owner),) * ndim
+    items = list(factor) if isinstance(factor, (list, tuple, np.ndarray)) else None
+    if items is None or len(items) != ndim:
+        raise v.fail(name, f"an int or a sequence of {ndim} ints", factor, owner)
+    return tuple(v.integer(x, name, low=1, owner=owner) for x in items)
