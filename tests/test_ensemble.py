@@ -92,6 +92,8 @@ def test_small_study_end_to_end_honours_hard_data(tmp_path):
     assert ds["facies"].dims == ("realization", "z", "y", "x")
     np.testing.assert_array_equal(ds["facies"].values, facies)
     assert json.loads(json.dumps(ds.attrs["strataloom"])) == attrs
+    cal = json.loads((tmp_path / "run" / "calibration.json").read_text())  # strict JSON
+    assert cal["scores"]["wells"] == 4 and 0 <= cal["scores"]["accuracy"] <= 1
     # the summary and report steps of [output] ran on the finished store
     assert (tmp_path / "run" / "summary.zarr").is_dir()
     assert (tmp_path / "run" / "report.html").stat().st_size > 1000

@@ -248,6 +248,15 @@ def _store_attrs(prepared: Prepared, seeds: list[int]) -> dict[str, Any]:
     )
 
 
+def _finite_or_none(x: Any) -> Any:
+    """JSON-safe copy: NaN and infinities (scores that need two wells) become null."""
+    if isinstance(x, dict):
+        return {k: _finite_or_none(v) for k, v in x.items()}
+    if isinstance(x, float) and not math.isfinite(x):
+        return None
+    return x
+
+
 def _study_record(study: Study) -> dict[str, Any]:
     """The study as stored: run-time choices (process count) left out, so they do not block a
     resume."""
@@ -320,14 +329,12 @@ def run_study(
         _atomic_save_npy(out_dir / "soft_data.npy", prep.soft.astype(np.float32))
     if prep.calibration is not None:
         cal = prep.calibration
-        text = json.dumps(
-            {
-                "scores": cal.scores,
-                "per_well": cal.per_well,
-                "explained_variance": cal.explained_variance,
-            },
-            indent=2,
-        )
+        record = {
+            "scores": cal.scores,
+            "per_well": cal.per_well,
+            "explained_variance": cal.explained_variance,
+        }
+        text = json.dumps(_finite_or_none(record), indent=2, allow_nan=False)
         tmp = out_dir / "calibration.json.tmp"
         tmp.write_text(text)
         os.replace(tmp, out_dir / "calibration.json")
