@@ -7,6 +7,7 @@ import numpy as np
 import pytest
 
 import strataloom as sl
+from reference.upscale_loop import upscale_loop
 from strataloom.conditioning import (
     Survey,
     Well,
@@ -158,19 +159,6 @@ def test_point_table_groups_by_well_column(tmp_path):
         read_point_table(tmp_path / "r.csv", ["facies"])
 
 
-def _brute_upscale(grid, wells, var):
-    """Slow reference: dictionaries of per-cell length sums (common practice, no source)."""
-    tally: dict = {}
-    for w in wells:
-        for p, val, ln in zip(w.points(), w.values[var], w.length, strict=True):
-            c = tuple(int(np.floor((p[k] - grid.origin[k]) / grid.spacing[k])) for k in range(3))
-            if any(c[k] < 0 or c[k] >= grid.shape[k] for k in range(3)) or not np.isfinite(val):
-                continue
-            tally.setdefault(c, {}).setdefault(int(val), 0.0)
-            tally[c][int(val)] += ln
-    return {c: min(d, key=lambda code: (-d[code], code)) for c, d in tally.items()}
-
-
 def test_upscale_matches_brute_force():
     rng = np.random.default_rng(3)
     grid = sl.Grid((4, 5, 6), spacing=(2.0, 10.0, 10.0), origin=(-8.0, 0.0, 0.0))
@@ -197,7 +185,7 @@ def test_upscale_matches_brute_force():
         {"facies": "categorical", "por": "continuous"},
         categories={"facies": [0, 1, 2]},
     )
-    ref = _brute_upscale(grid, wells, "facies")
+    ref = upscale_loop(grid, wells, "facies")  # tests/reference/upscale_loop.py
     got = {
         tuple(int(x) for x in c): int(v) for c, v in zip(hd.cells, hd.values["facies"], strict=True)
     }

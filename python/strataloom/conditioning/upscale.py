@@ -242,10 +242,15 @@ def upscale(
                 present = tally.sum(axis=1) > 0
                 out[present] = uc[best[present]]
                 n_codes = (tally > 0).sum(axis=1)
+                # samples grouped by cell, to name the wells of each conflicting cell
+                ok_idx = np.flatnonzero(ok)
+                order = ok_idx[np.argsort(slot[ok_idx], kind="stable")]
+                sorted_slots = slot[order]
                 for j in np.flatnonzero(n_codes > 1):
                     row = tally[j]
                     top = row.max()
-                    in_cell = (slot == j) & ok
+                    lo, hi = np.searchsorted(sorted_slots, [j, j + 1])
+                    in_cell = order[lo:hi]
                     conflicts.append(
                         Conflict(
                             cell=tuple(int(c) for c in cell_rows[j]),
