@@ -28,7 +28,7 @@ from .training import (
     gaussian_field,
     rank_training_images,
 )
-from .tree import PatternTree
+from .tree import PatternTree, simulate_zones, turned_image
 
 try:
     __version__ = _version("strataloom")
@@ -62,8 +62,10 @@ __all__ = [
     "open_summary",
     "random_path",
     "rank_training_images",
+    "simulate_zones",
     "summarize",
     "tau_merge",
     "training",
+    "turned_image",
     "uniform_draws",
 ]
