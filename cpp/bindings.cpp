@@ -274,51 +274,61 @@ void bind_tree(py::module_& m) {
              return py::make_tuple(vector_to_array(std::move(scratch.best)), a.replicates, a.kept);
            },
            py::arg("level"), py::arg("index"), py::arg("values"), py::arg("min_replicates"), py::arg("scan") = false)
-      .def("simulate",
-           [](const sl::PatternTree& t, std::array<Index, 3> shape, const py::object& hard, const std::vector<CArray<double>>& soft,
-              const std::vector<double>& tau, const std::vector<double>& target, double steering, std::uint64_t seed, int threads,
-              int max_conditioning, std::int64_t min_replicates, std::int64_t max_batch, const py::object& progress) {
-             const sl::Grid grid(to_ijk(shape));
-             std::vector<std::int16_t> hard_codes;
-             if (!hard.is_none()) {
-               auto h = hard.cast<CArray<std::int16_t>>();
-               if (h.size() != grid.size()) throw sl::ParameterError("hard", "must have the grid's shape.");
-               hard_codes.assign(h.data(), h.data() + h.size());
-             }
-             sl::TreeSimOptions opt;
-             opt.seed = seed;
-             opt.threads = threads;
-             opt.max_conditioning = max_conditioning;
-             opt.min_replicates = min_replicates;
-             for (const auto& s : soft) {
-               if (s.size() != grid.size() * t.categories())
-                 throw sl::ParameterError("soft", "must hold K probabilities per grid cell.");
-               opt.soft.push_back(s.data());
-             }
-             opt.tau = tau;
-             opt.target = target;
-             opt.steering = steering;
-             opt.max_batch = max_batch;
-             const sl::Poll poll = make_poll(&progress);
-             sl::TreeSimStats stats;
-             std::vector<std::int16_t> out;
-             {
-               py::gil_scoped_release release;
-               out = sl::simulate_tree(t, grid, hard_codes, opt, poll, &stats);
-             }
-             py::dict st;
-             st["simulated"] = stats.simulated;
-             st["mean_informed"] = stats.mean_informed;
-             st["mean_kept"] = stats.mean_kept;
-             st["scans"] = stats.scans;
-             st["relocated"] = stats.relocated;
-             st["mean_visited"] = stats.mean_visited;
-             st["seconds"] = stats.seconds;
-             return py::make_tuple(vector_to_array(std::move(out)), st);
-           },
-           py::arg("shape"), py::arg("hard"), py::arg("soft"), py::arg("tau"), py::arg("target"), py::arg("steering"),
-           py::arg("seed"), py::arg("threads"), py::arg("max_conditioning"), py::arg("min_replicates"), py::arg("max_batch"),
-           py::arg("progress"));
+;
+
+  m.def("simulate_trees",
+        [](const std::vector<const sl::PatternTree*>& trees, const py::object& zones, std::array<Index, 3> shape,
+           const py::object& hard, const std::vector<CArray<double>>& soft, const std::vector<double>& tau,
+           const std::vector<double>& target, double steering, std::uint64_t seed, int threads, int max_conditioning,
+           std::int64_t min_replicates, std::int64_t max_batch, const py::object& progress) {
+          const sl::Grid grid(to_ijk(shape));
+          if (trees.empty() || trees[0] == nullptr) throw sl::ParameterError("trees", "must hold at least one pattern tree.");
+          std::vector<std::int16_t> hard_codes;
+          if (!hard.is_none()) {
+            auto h = hard.cast<CArray<std::int16_t>>();
+            if (h.size() != grid.size()) throw sl::ParameterError("hard", "must have the grid's shape.");
+            hard_codes.assign(h.data(), h.data() + h.size());
+          }
+          std::vector<std::uint8_t> zone;
+          if (!zones.is_none()) {
+            auto z = zones.cast<CArray<std::uint8_t>>();
+            if (z.size() != grid.size()) throw sl::ParameterError("zones", "must have the grid's shape.");
+            zone.assign(z.data(), z.data() + z.size());
+          }
+          sl::TreeSimOptions opt;
+          opt.seed = seed;
+          opt.threads = threads;
+          opt.max_conditioning = max_conditioning;
+          opt.min_replicates = min_replicates;
+          for (const auto& s : soft) {
+            if (s.size() != grid.size() * trees[0]->categories())
+              throw sl::ParameterError("soft", "must hold K probabilities per grid cell.");
+            opt.soft.push_back(s.data());
+          }
+          opt.tau = tau;
+          opt.target = target;
+          opt.steering = steering;
+          opt.max_batch = max_batch;
+          const sl::Poll poll = make_poll(&progress);
+          sl::TreeSimStats stats;
+          std::vector<std::int16_t> out;
+          {
+            py::gil_scoped_release release;
+            out = sl::simulate_trees(trees, zone, grid, hard_codes, opt, poll, &stats);
+          }
+          py::dict st;
+          st["simulated"] = stats.simulated;
+          st["mean_informed"] = stats.mean_informed;
+          st["mean_kept"] = stats.mean_kept;
+          st["scans"] = stats.scans;
+          st["relocated"] = stats.relocated;
+          st["mean_visited"] = stats.mean_visited;
+          st["seconds"] = stats.seconds;
+          return py::make_tuple(vector_to_array(std::move(out)), st);
+        },
+        py::arg("trees"), py::arg("zones"), py::arg("shape"), py::arg("hard"), py::arg("soft"), py::arg("tau"),
+        py::arg("target"), py::arg("steering"), py::arg("seed"), py::arg("threads"), py::arg("max_conditioning"),
+        py::arg("min_replicates"), py::arg("max_batch"), py::arg("progress"));
 }
 
 // Direct sampling: the padded training image and one simulation call (GIL released inside).

@@ -37,11 +37,30 @@ struct Worker {
 
 std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& grid, const std::vector<std::int16_t>& hard,
                                         const TreeSimOptions& opt, const Poll& poll, TreeSimStats* stats) {
+  return simulate_trees({&tree}, {}, grid, hard, opt, poll, stats);
+}
+
+std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& trees, const std::vector<std::uint8_t>& zone,
+                                         const Grid& grid, const std::vector<std::int16_t>& hard,
+                                         const TreeSimOptions& opt, const Poll& poll, TreeSimStats* stats) {
+  require(!trees.empty() && trees.size() <= 255, "trees", "must hold between 1 and 255 pattern trees.");
+  const PatternTree& tree = *trees[0];
+  for (const PatternTree* t : trees) {
+    require(t->categories() == tree.categories(), "trees", "must all have the same number of categories.");
+    require(t->levels() == tree.levels(), "trees", "must all have the same number of levels.");
+  }
+
   const int K = tree.categories();
   const std::size_t Ks = static_cast<std::size_t>(K);
   const Index N = grid.size();
   const int levels = tree.levels();
-  const std::size_t D = tree.template_size();
+  std::size_t D = 0;
+  for (const PatternTree* t : trees) D = std::max(D, t->template_size());
+  require(zone.empty() || static_cast<Index>(zone.size()) == N, "zones", "must have the grid's shape.");
+  for (std::uint8_t z : zone) require(z < trees.size(), "zones", "holds a zone without a training image.");
+  auto tree_of = [&](Index cell) -> const PatternTree& {
+    return zone.empty() ? tree : *trees[zone[static_cast<std::size_t>(cell)]];
+  };
   require(hard.empty() || static_cast<Index>(hard.size()) == N, "hard", "must have the grid's shape.");
   require(opt.min_replicates >= 1, "min_replicates", "must be at least 1.");
   require(opt.tau.size() == opt.soft.size() + 1, "tau", "must hold one weight for the TI and one per soft source.");
@@ -52,24 +71,30 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
 
   std::vector<std::int16_t> sim(static_cast<std::size_t>(N), -1);
   std::vector<std::int64_t> counts(Ks, 0);  // informed cells per category (hard + simulated)
-  const auto& ti_counts = tree.category_counts();
   if (!hard.empty()) {
     for (Index i = 0; i < N; ++i) {
       const std::int16_t h = hard[static_cast<std::size_t>(i)];
       if (h < 0) continue;
-      require(h < K && ti_counts[static_cast<std::size_t>(h)] > 0, "hard",
-              "holds code " + std::to_string(h) + ", which the training image does not contain.");
+      require(h < K && tree_of(i).category_counts()[static_cast<std::size_t>(h)] > 0, "hard",
+              "holds code " + std::to_string(h) + ", which the training image of its zone does not contain.");
       sim[static_cast<std::size_t>(i)] = h;
       counts[static_cast<std::size_t>(h)] += 1;
     }
   }
-  // Prior of the tau model: the target proportions when given, else the TI's.
-  std::vector<double> prior(Ks);
-  {
+  // Prior of the tau model, per zone: the target proportions when given, else the zone's TI's.
+  std::vector<double> priors(Ks * trees.size());
+  for (std::size_t t = 0; t < trees.size(); ++t) {
+    const auto& ti_counts = trees[t]->category_counts();
     double total = 0;
-    for (int k = 0; k < K; ++k) total += static_cast<double>(ti_counts[static_cast<std::size_t>(k)]);
+    for (std::size_t k = 0; k < Ks; ++k) total += static_cast<double>(ti_counts[k]);
     for (std::size_t k = 0; k < Ks; ++k)
-      prior[k] = opt.target.empty() ? static_cast<double>(ti_counts[k]) / total : opt.target[k];
+      priors[t * Ks + k] = opt.target.empty() ? static_cast<double>(ti_counts[k]) / total : opt.target[k];
+  }
+  // Batches must keep apart nodes that can read each other: the widest template, per axis.
+  Offset reach{0, 0, 0};
+  for (const PatternTree* t : trees) {
+    const Offset r = t->base_template().reach();
+    for (int a = 0; a < 3; ++a) reach[a] = std::max(reach[a], r[a]);
   }
   // Steering gain: s / (1 - s), capped so that full steering stays finite.
   const double gain = opt.target.empty() ? 0.0 : std::min(50.0, opt.steering / std::max(1e-12, 1.0 - opt.steering));
@@ -82,7 +107,6 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
     w.merged.resize(Ks);
     w.sources.resize(Ks * (1 + opt.soft.size()));
   }
-  const std::vector<Offset>& offsets = tree.base_template().offsets();
   const int cap = opt.max_conditioning > 0 ? opt.max_conditioning : static_cast<int>(D);
   if (stats) *stats = TreeSimStats{std::vector<std::int64_t>(static_cast<std::size_t>(levels), 0),
                                    std::vector<double>(static_cast<std::size_t>(levels), 0.0),
@@ -118,7 +142,7 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
                path.end());
     std::sort(path.begin(), path.end());
     shuffle_path(path, opt.seed, level);
-    const auto starts = conflict_free_batches(grid, level, tree.base_template().reach(), path, opt.max_batch);
+    const auto starts = conflict_free_batches(grid, level, reach, path, opt.max_batch);
     // Preparing a level of a large grid takes a moment: give Ctrl-C a chance before running it.
     if (poll && !poll(ctl.done.load(), ctl.total)) throw Cancelled();
     std::vector<std::int64_t> snapshot(counts);  // proportions seen by one batch
@@ -129,11 +153,14 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
       Worker& w = workers[static_cast<std::size_t>(wid)];
       const Index cell = path[static_cast<std::size_t>(pos)];
       const Ijk c = grid.cell(cell);
+      const PatternTree& t = tree_of(cell);
+      const std::size_t zone_id = zone.empty() ? 0 : zone[static_cast<std::size_t>(cell)];
+      const std::vector<Offset>* offsets = &t.base_template().offsets();
       // Data event: informed template nodes, nearest first, up to the cap on conditioning nodes.
       int m = 0;
-      for (std::size_t i = 0; i < D && m < cap; ++i) {
-        const Ijk q{c[0] + Index{offsets[i][0]} * step, c[1] + Index{offsets[i][1]} * step,
-                    c[2] + Index{offsets[i][2]} * step};
+      for (std::size_t i = 0; i < offsets->size() && m < cap; ++i) {
+        const Offset& o = (*offsets)[i];
+        const Ijk q{c[0] + Index{o[0]} * step, c[1] + Index{o[1]} * step, c[2] + Index{o[2]} * step};
         if (!grid.contains(q)) continue;
         const std::int16_t v = sim[static_cast<std::size_t>(grid.index(q))];
         if (v < 0) continue;
@@ -141,7 +168,8 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
         w.value[static_cast<std::size_t>(m)] = static_cast<std::uint8_t>(v);
         ++m;
       }
-      const EventAnswer ans = tree.query(level, w.index.data(), w.value.data(), m, opt.min_replicates, true, w.scratch);
+      const double* prior = priors.data() + zone_id * Ks;
+      const EventAnswer ans = t.query(level, w.index.data(), w.value.data(), m, opt.min_replicates, true, w.scratch);
       w.informed += m;
       w.kept += ans.kept;
       w.scans += ans.scanned;
@@ -163,11 +191,11 @@ std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& gri
       if (any_soft) {
         // tau of the sources actually present at this cell
         double tau_here[64];
-        std::size_t t = 0;
-        tau_here[t++] = opt.tau[0];
+        std::size_t present = 0;
+        tau_here[present++] = opt.tau[0];
         for (std::size_t s = 0; s < opt.soft.size(); ++s)
-          if (!std::isnan(opt.soft[s][static_cast<std::size_t>(cell) * Ks])) tau_here[t++] = opt.tau[1 + s];
-        tau_merge(prior.data(), w.sources.data(), tau_here, n_src, Ks, w.merged.data());
+          if (!std::isnan(opt.soft[s][static_cast<std::size_t>(cell) * Ks])) tau_here[present++] = opt.tau[1 + s];
+        tau_merge(prior, w.sources.data(), tau_here, n_src, Ks, w.merged.data());
         w.probs.swap(w.merged);
       }
       // Steering toward the target proportions.

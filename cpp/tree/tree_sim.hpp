@@ -36,8 +36,18 @@ struct TreeSimStats {
   std::vector<double> seconds;               // wall time per level
 };
 
-// Simulates a realization on `grid`. `hard` holds grid.size() codes, -1 = unknown (may be empty).
-// Returns grid.size() codes. Throws Cancelled when poll returns false.
+// Simulates a realization on `grid` with one pattern tree per zone: `zone` holds grid.size()
+// indices into `trees` (empty: every cell uses trees[0]). All trees share K and the number of
+// levels; a node reads its neighbours whatever their zone, so zones see each other's values.
+// (Rotation and affinity are zones too: the Python layer builds one tree per class from the TI
+// turned and stretched accordingly.)
+// `hard` holds grid.size() codes, -1 = unknown (may be empty). Returns grid.size() codes.
+// Throws Cancelled when poll returns false.
+std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& trees, const std::vector<std::uint8_t>& zone,
+                                         const Grid& grid, const std::vector<std::int16_t>& hard,
+                                         const TreeSimOptions& options, const Poll& poll, TreeSimStats* stats);
+
+// One tree for the whole grid, no geometry.
 std::vector<std::int16_t> simulate_tree(const PatternTree& tree, const Grid& grid, const std::vector<std::int16_t>& hard,
                                         const TreeSimOptions& options, const Poll& poll, TreeSimStats* stats);
 

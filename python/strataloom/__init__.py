@@ -31,7 +31,7 @@ from .training import (
     gaussian_field,
     rank_training_images,
 )
-from .tree import PatternTree
+from .tree import PatternTree, simulate_zones, turned_image
 from .workflow import check_study, prepare, run_study
 
 try:
@@ -74,8 +74,10 @@ __all__ = [
     "realization_seeds",
     "run_ensemble",
     "run_study",
+    "simulate_zones",
     "summarize",
     "tau_merge",
     "training",
+    "turned_image",
     "uniform_draws",
 ]

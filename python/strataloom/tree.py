@@ -10,7 +10,7 @@ proportions, and draws the category. Everything runs in the compiled core, off t
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -19,7 +19,7 @@ from . import _core
 from . import _validate as v
 from .template import Template
 
-__all__ = ["PatternTree"]
+__all__ = ["GEOMETRY_STEP", "PatternTree", "simulate_zones", "turned_image"]
 
 _OWNER = "PatternTree"
 #: Largest category code a training image may hold (codes are stored in one byte).
@@ -83,7 +83,20 @@ class PatternTree:
             memory_limit, "memory_limit", low=1, owner=_OWNER)
         k = int(codes[codes != 255].max()) + 1
         self._tree = _core.PatternTree(np.ascontiguousarray(codes), k, np.ascontiguousarray(tpl.offsets), lv, limit)
+        self._codes = codes
+        self._limit = limit
+        self._turned: dict[tuple, PatternTree] = {}  # trees of the TI turned and stretched, by class
         self.last_stats: dict[str, list] | None = None
+
+    def _variant(self, key: tuple) -> PatternTree:
+        """The tree of this TI turned by (azimuth, dip) and stretched by affinity (built once)."""
+        if key == (0.0, 0.0, (1.0, 1.0, 1.0)):
+            return self
+        if key not in self._turned:
+            turned = turned_image(np.where(self._codes == 255, -1, self._codes.astype(np.int16)), *key)
+            self._turned[key] = PatternTree(turned, self._template, levels=self._tree.levels,
+                                            min_replicates=self._min_replicates, memory_limit=self._limit)
+        return self._turned[key]
 
     # ----------------------------------------------------------------- description
     @property
@@ -179,6 +192,7 @@ class PatternTree:
     def simulate(self, shape: Any, *, hard: Any = None, soft: Any = None, tau: Any = None,
                  target_proportions: Any = None, steering: float = 0.5, seed: int = 0,
                  threads: int | None = None, max_conditioning: int | None = None,
+                 rotation: Any = None, affinity: Any = None,
                  progress: Callable[[int, int], Any] | None = None) -> np.ndarray:
         """Simulate one realization.
 
@@ -209,6 +223,21 @@ class PatternTree:
         max_conditioning : int, optional
             Use at most this many informed nodes per data event (nearest first in template
             order); default all.
+        rotation : float, (azimuth, dip), array or pair of arrays, optional
+            Turns the TI's structures: azimuth in degrees clockwise from +y toward +x (a TI
+            direction along +y then points along the azimuth), dip in degrees tipping that
+            direction toward -z (3-D only). Constants or ``(nz, ny, nx)`` maps; maps are grouped
+            into classes of `GEOMETRY_STEP` degrees.
+        affinity : float, (fz, fy, fx) or (3, nz, ny, nx) array, optional
+            Stretches the TI's structures per axis before rotation: 2 along x makes bodies about
+            twice as long along x. Factors in (0, 16]; maps are grouped into classes a quarter
+            of a power of two apart.
+
+        Notes
+        -----
+        Rotation and affinity are honoured by simulating each class of cells with a tree built
+        from the TI turned and stretched by that class's values (nearest-cell resampling),
+        built on first use and kept; cells read their neighbours whatever their class.
         progress : callable, optional
             Called as ``progress(done, total)`` about ten times a second, on the calling thread.
 
@@ -216,24 +245,219 @@ class PatternTree:
         -------
         ndarray of int16, shaped like ``shape``
         """
-        shp = v.shape3(shape, "shape", owner="PatternTree.simulate")
-        k = self.categories
-        hard_arr = None if hard is None else _hard_codes(hard, shp)
-        sources = _soft_sources(soft, shp, k)
-        taus = _tau_weights(tau, len(sources))
-        target: list[float] = []
-        if target_proportions is not None:
-            target = _target(target_proportions, self.category_counts)
-        steer = v.real(steering, "steering", low=0.0, high=1.0, owner="PatternTree.simulate")
-        mc = 0 if max_conditioning is None else v.integer(max_conditioning, "max_conditioning", low=1,
-                                                          owner="PatternTree.simulate")
-        out, stats = self._tree.simulate(
-            shp, hard_arr, sources, taus, target, steer, v.seed(seed, owner="PatternTree.simulate"),
-            v.threads(threads, owner="PatternTree.simulate"), mc, self._min_replicates, 256,
-            v.callback(progress, "progress", owner="PatternTree.simulate"))
-        self.last_stats = dict(stats)
-        result = np.asarray(out).reshape(shp)
-        return result[0] if len(tuple(shape)) == 2 else result
+        out, stats = _run([self], None, shape, hard=hard, soft=soft, tau=tau,
+                          target_proportions=target_proportions, steering=steering, seed=seed,
+                          threads=threads, max_conditioning=max_conditioning, rotation=rotation,
+                          affinity=affinity, progress=progress, owner="PatternTree.simulate")
+        self.last_stats = stats
+        return out
+
+
+def simulate_zones(trees: Any, zones: Any, shape: Any, *, hard: Any = None, soft: Any = None, tau: Any = None,
+                   target_proportions: Any = None, steering: float = 0.5, seed: int = 0,
+                   threads: int | None = None, max_conditioning: int | None = None, rotation: Any = None,
+                   affinity: Any = None, progress: Callable[[int, int], Any] | None = None) -> np.ndarray:
+    """Simulate one realization whose zones each follow their own training image.
+
+    Parameters
+    ----------
+    trees : sequence of PatternTree or mapping int -> PatternTree
+        The tree of each zone code. All must have the same number of categories (the largest
+        code + 1) and of levels; each keeps its own template and ``min_replicates``.
+    zones : (nz, ny, nx) or (ny, nx) array of int
+        Zone code of every cell. Nodes read their neighbours whatever their zone, so the
+        borders between zones see both sides' simulated values.
+    shape, hard, soft, tau, target_proportions, steering, seed, threads, max_conditioning,
+    rotation, affinity, progress
+        As for `PatternTree.simulate`; the tau model's prior is each zone's TI proportions
+        (or the target).
+
+    Returns
+    -------
+    ndarray of int16, shaped like ``shape``
+    """
+    owner = "simulate_zones"
+    if isinstance(trees, Mapping):
+        codes = list(trees)
+        if not codes or not all(isinstance(c, int) and 0 <= c <= 254 for c in codes):
+            raise v.fail("trees", "a mapping from zone codes 0..254 to PatternTree", codes, owner)
+        listed: list[Any] = [None] * (max(codes) + 1)
+        for c, t in trees.items():
+            listed[c] = t
+    elif isinstance(trees, Sequence) and not isinstance(trees, (str, bytes)):
+        listed = list(trees)
+    else:
+        raise v.fail_type("trees", "a sequence or mapping of PatternTree", trees, owner)
+    if not listed or not all(isinstance(t, PatternTree) for t in listed if t is not None) or listed[0] is None:
+        raise v.fail("trees", "PatternTree objects (zone 0 included)", listed, owner)
+    first = listed[0]
+    for t in listed:
+        if t is not None and (t.categories != first.categories or t._tree.levels != first._tree.levels):
+            raise v.fail("trees", "trees with the same number of categories and of levels",
+                         [(x.categories, x._tree.levels) for x in listed if x is not None], owner)
+    shp = v.shape3(shape, "shape", owner=owner)
+    z = np.asarray(zones)
+    if z.ndim == 2:
+        z = z[np.newaxis]
+    if z.shape != shp:
+        raise v.fail("zones", f"an array of the grid's shape {shp}", f"shape {np.asarray(zones).shape}", owner)
+    if not np.issubdtype(z.dtype, np.integer):
+        raise v.fail_type("zones", "an integer array of zone codes", z, owner)
+    used = np.unique(z)
+    missing = [int(c) for c in used if c < 0 or c >= len(listed) or listed[int(c)] is None]
+    if missing:
+        raise v.fail("zones", "codes that each have a PatternTree in `trees`", f"zone codes {missing}", owner)
+    stand_in = [t if t is not None else first for t in listed]
+    out, _ = _run(stand_in, np.asarray(z, dtype=np.int64), shape, hard=hard, soft=soft, tau=tau,
+                  target_proportions=target_proportions, steering=steering, seed=seed, threads=threads,
+                  max_conditioning=max_conditioning, rotation=rotation, affinity=affinity, progress=progress,
+                  owner=owner)
+    return out
+
+
+#: Width in degrees of the rotation classes of a rotation map.
+GEOMETRY_STEP = 10.0
+_AFFINITY_STEP = 0.25  # classes of log2(affinity)
+
+
+def _run(trees: list[PatternTree], zones: np.ndarray | None, shape: Any, *, hard: Any, soft: Any, tau: Any,
+         target_proportions: Any, steering: float, seed: int, threads: int | None, max_conditioning: int | None,
+         rotation: Any, affinity: Any, progress: Any, owner: str) -> tuple[np.ndarray, dict]:
+    """Validate the simulation arguments once and run the core (zones: (nz, ny, nx) indices into trees)."""
+    shp = v.shape3(shape, "shape", owner=owner)
+    k = trees[0].categories
+    hard_arr = None if hard is None else _hard_codes(hard, shp)
+    sources = _soft_sources(soft, shp, k)
+    taus = _tau_weights(tau, len(sources))
+    target: list[float] = []
+    if target_proportions is not None:
+        counts = np.sum([t.category_counts for t in trees], axis=0)
+        target = _target(target_proportions, counts)
+    steer = v.real(steering, "steering", low=0.0, high=1.0, owner=owner)
+    mc = 0 if max_conditioning is None else v.integer(max_conditioning, "max_conditioning", low=1, owner=owner)
+    trees, zones = _geometry_classes(trees, zones, rotation, affinity, shp, owner)
+    flat = None if zones is None else np.ascontiguousarray(zones, dtype=np.uint8).ravel()
+    out, stats = _core.simulate_trees(
+        [t._tree for t in trees], flat, shp, hard_arr, sources, taus, target, steer, v.seed(seed, owner=owner),
+        v.threads(threads, owner=owner), mc, trees[0]._min_replicates, 256,
+        v.callback(progress, "progress", owner=owner))
+    result = np.asarray(out).reshape(shp)
+    return (result[0] if len(tuple(shape)) == 2 else result), dict(stats)
+
+
+def _geometry_classes(trees: list[PatternTree], zones: np.ndarray | None, rotation: Any, affinity: Any,
+                      shape: tuple[int, int, int], owner: str) -> tuple[list[PatternTree], np.ndarray | None]:
+    """One tree per (zone, rotation class, affinity class) present, and the class of every cell."""
+    if rotation is None and affinity is None:
+        return trees, zones
+    azimuth, dip = _rotation(rotation, shape, owner)
+    aff = _affinity(affinity, shape, owner)
+    if shape[0] == 1 and np.any(dip != 0):
+        raise v.fail("rotation", "an azimuth alone for a 2-D grid (dip needs a 3-D grid)", rotation, owner)
+    n = shape[0] * shape[1] * shape[2]
+    keys = np.empty((n, 6), dtype=np.int64)
+    keys[:, 0] = 0 if zones is None else zones.ravel()
+    keys[:, 1] = np.broadcast_to(np.rint(azimuth / GEOMETRY_STEP).astype(np.int64) % round(360 / GEOMETRY_STEP), n)
+    keys[:, 2] = np.broadcast_to(np.rint(dip / GEOMETRY_STEP).astype(np.int64), n)
+    keys[:, 3:] = np.broadcast_to(np.rint(np.log2(aff) / _AFFINITY_STEP).astype(np.int64), (n, 3))
+    classes, inverse = np.unique(keys, axis=0, return_inverse=True)
+    if len(classes) > 255:
+        raise v.fail("rotation", "maps with at most 255 classes of zone, rotation and affinity",
+                     f"{len(classes)} classes", owner)
+    built = []
+    for zone, az, dp, fz, fy, fx in classes.tolist():
+        key = (float(az * GEOMETRY_STEP), float(dp * GEOMETRY_STEP),
+               tuple(float(2.0 ** (f * _AFFINITY_STEP)) for f in (fz, fy, fx)))
+        built.append(trees[zone]._variant(key))
+    return built, inverse.reshape(shape)
+
+
+def turned_image(ti: Any, azimuth: float = 0.0, dip: float = 0.0, affinity: Any = (1.0, 1.0, 1.0)) -> np.ndarray:
+    """A categorical training image turned and stretched, by nearest-cell resampling.
+
+    Parameters
+    ----------
+    ti : (nz, ny, nx) or (ny, nx) array of int
+        Codes, negative = masked.
+    azimuth : float
+        Degrees clockwise from +y toward +x: a TI direction along +y ends up along the azimuth.
+    dip : float
+        Degrees tipping the azimuth direction toward -z (3-D only).
+    affinity : sequence of 3 float
+        Stretch factors (z, y, x), applied before the rotation.
+
+    Returns
+    -------
+    ndarray of int16
+        The turned image in a box that holds all of it; cells outside the original are -1.
+    """
+    from scipy import ndimage
+
+    a = np.asarray(ti)
+    flat = a.ndim == 2
+    a3 = a[np.newaxis] if flat else a
+    f = np.asarray(affinity, dtype=np.float64)
+    if flat or a3.shape[0] == 1:
+        f = np.array([1.0, f[1], f[2]])
+        dip = 0.0
+    az, dp = np.radians(azimuth), np.radians(dip)
+    # (z, y, x) coordinates; x' = x cos + y sin, y' = -x sin + y cos (clockwise from +y), then dip.
+    rot_az = np.array([[1, 0, 0], [0, np.cos(az), -np.sin(az)], [0, np.sin(az), np.cos(az)]])
+    rot_dip = np.array([[np.cos(dp), -np.sin(dp), 0], [np.sin(dp), np.cos(dp), 0], [0, 0, 1]])
+    m = rot_dip @ rot_az @ np.diag(f)
+    size = np.array(a3.shape, dtype=np.float64)
+    corners = np.array([[z, y, x] for z in (0, size[0]) for y in (0, size[1]) for x in (0, size[2])]) - size / 2
+    span = np.abs(corners @ m.T).max(axis=0) * 2
+    out_shape = tuple(max(1, int(np.ceil(s - 1e-9))) for s in span)
+    if a3.shape[0] == 1:
+        out_shape = (1, *out_shape[1:])
+    inv = np.linalg.inv(m)
+    centre_in = (size - 1) / 2
+    centre_out = (np.array(out_shape, dtype=np.float64) - 1) / 2
+    offset = centre_in - inv @ centre_out
+    out = ndimage.affine_transform(a3.astype(np.int16), inv, offset=offset, output_shape=out_shape, order=0,
+                                   mode="constant", cval=-1)
+    return out[0] if flat else out
+
+
+def _angle_map(value: Any, shape: tuple[int, int, int], owner: str) -> np.ndarray:
+    """Degrees: a 0-d array for a constant, else the flattened (nz, ny, nx) map."""
+    if np.isscalar(value):
+        return np.asarray(v.real(value, "rotation", owner=owner))
+    a = np.asarray(value, dtype=np.float64)
+    if a.ndim == 2:
+        a = a[np.newaxis]
+    if a.shape != shape or not np.isfinite(a).all():
+        raise v.fail("rotation", f"a number of degrees or a finite map of the grid's shape {shape}",
+                     f"shape {np.asarray(value).shape}", owner)
+    return a.ravel()
+
+
+def _rotation(rotation: Any, shape: tuple[int, int, int], owner: str) -> tuple[np.ndarray, np.ndarray]:
+    if rotation is None:
+        return np.asarray(0.0), np.asarray(0.0)
+    if isinstance(rotation, tuple) and len(rotation) == 2:
+        return _angle_map(rotation[0], shape, owner), _angle_map(rotation[1], shape, owner)
+    return _angle_map(rotation, shape, owner), np.asarray(0.0)
+
+
+def _affinity(affinity: Any, shape: tuple[int, int, int], owner: str) -> np.ndarray:
+    """Factors (z, y, x): shape (3,) for constants, else (cells, 3)."""
+    if affinity is None:
+        return np.ones(3)
+    a = np.asarray(affinity, dtype=np.float64)
+    if a.ndim == 0:
+        a = np.repeat(a, 3)
+    if a.shape == (3,):
+        flat = a
+    elif a.shape == (3, *shape) or (shape[0] == 1 and a.shape == (3, *shape[1:])):
+        flat = np.moveaxis(a.reshape(3, -1), 0, -1)
+    else:
+        raise v.fail("affinity", f"a factor, three factors (z, y, x) or an array of shape (3, {shape})",
+                     f"shape {a.shape}", owner)
+    if not np.isfinite(flat).all() or (flat <= 0).any() or (flat > 16).any():
+        raise v.fail("affinity", "factors in (0, 16]", f"values in [{flat.min():g}, {flat.max():g}]", owner)
+    return flat
 
 
 def _hard_codes(hard: Any, shape: tuple[int, int, int]) -> np.ndarray:
