@@ -98,6 +98,11 @@ def test_small_study_end_to_end_honours_hard_data(tmp_path):
     assert (tmp_path / "run" / "summary.zarr").is_dir()
     assert (tmp_path / "run" / "report.html").stat().st_size > 1000
     assert any(line.startswith("report ") for line in summary.extras)
+    # the run keeps the training image it used, so `strataloom report DIR` finds it alone
+    np.testing.assert_array_equal(np.load(tmp_path / "run" / "training_image.npy"), summary.prepared.training_image)
+    from strataloom.commands import _load_ti
+
+    np.testing.assert_array_equal(_load_ti(None, tmp_path / "run"), summary.prepared.training_image)
     # realizations differ from each other but share the data
     assert len({facies[i].tobytes() for i in range(5)}) == 5
 

@@ -140,7 +140,7 @@ def _arguments(add: Callable[[argparse.ArgumentParser], None]) -> Callable:
 
 
 def _load_ti(path: str | None, run_dir: Path) -> object:
-    """A training image from a .npy file, or the one named in the study (if it is a .npy file)."""
+    """A training image from a .npy file, else the run folder's copy, else the study's .npy file."""
     import json
 
     import numpy as np
@@ -148,6 +148,8 @@ def _load_ti(path: str | None, run_dir: Path) -> object:
     from . import _validate as v
     from .runread import Run
 
+    if path is None and (run_dir / "training_image.npy").is_file():
+        path = str(run_dir / "training_image.npy")  # written by `strataloom run`
     if path is None:
         study = Run(run_dir).meta.get("study") or {}
         ti = study.get("training_image") if isinstance(study, dict) else None

@@ -323,6 +323,8 @@ def run_study(
     store = RealizationStore.create(
         out_dir / "realizations.zarr", attrs=_store_attrs(prep, seeds), overwrite=overwrite
     )
+    # The training image used, so that summaries, QC and reports of this folder need nothing else.
+    _atomic_save_npy(out_dir / "training_image.npy", np.asarray(prep.training_image))
     if study.output.hard_data and len(prep.hard.cells):
         prep.hard.save(out_dir / "hard_data.npz")
     if study.output.soft_data and prep.soft is not None:
