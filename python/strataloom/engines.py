@@ -239,7 +239,12 @@ def _split(cls: Any, params: dict[str, Any]) -> tuple[dict[str, Any], dict[str, 
     return init, call
 
 
-class _PatternTreeAdapter:
+class _Adapter:
+    """One engine built once from a factory; `simulate(seed)` gives {variable: realization}."""
+
+    #: Data of the factory the engine's simulate() takes besides hard data.
+    extra: tuple[str, ...] = ()
+
     def __init__(self, cls: Any, f: EngineFactory, params: dict[str, Any], threads: Any) -> None:
         init, self._call = _split(cls, params)
         if "template" in init:
@@ -251,36 +256,16 @@ class _PatternTreeAdapter:
 
     def simulate(self, seed: int, progress: Any = None) -> dict[str, np.ndarray]:
         f = self._f
+        data = {name: getattr(f, name) for name in self.extra}
         out = self._engine.simulate(
-            f.shape,
-            hard=f.hard,
-            soft=f.soft,
-            seed=seed,
-            threads=self._threads,
-            progress=progress,
-            **self._call,
+            f.shape, hard=f.hard, seed=seed, threads=self._threads, progress=progress, **data, **self._call
         )
         return {f.variable: np.asarray(out)}
 
 
-class _DirectSamplerAdapter:
+class _PatternTreeAdapter(_Adapter):
+    extra = ("soft",)
+
+
+class _DirectSamplerAdapter(_Adapter):
     """Single-variable direct sampling with hard data (auxiliary variables: not in studies yet)."""
-
-    def __init__(self, cls: Any, f: EngineFactory, params: dict[str, Any], threads: Any) -> None:
-        init, self._call = _split(cls, params)
-        self._engine = cls(f.training_image, **init)
-        self._f = f
-        self._threads = threads
-        self.variables = (f.variable,)
-
-    def simulate(self, seed: int, progress: Any = None) -> dict[str, np.ndarray]:
-        f = self._f
-        out = self._engine.simulate(
-            f.shape,
-            hard=f.hard,
-            seed=seed,
-            threads=self._threads,
-            progress=progress,
-            **self._call,
-        )
-        return {f.variable: np.asarray(out)}

@@ -236,10 +236,7 @@ def run_ensemble(
         bars = _Progress(progress, store.size, already, "Dask")
         try:
             for index, arrays in _run_dask(client, factory, todo, seeds, bars):
-                store.write(index, arrays)
-                bars.finished(index)
-                if on_written:
-                    on_written(index)
+                _record(store, bars, on_written, index, arrays)
         finally:
             bars.close()
         return EnsembleResult(todo, already, store.size, time.perf_counter() - t0, workers, where)
@@ -256,20 +253,21 @@ def run_ensemble(
             adapter = _adapter(factory)
             for index in todo:
                 bars.started(index)
-                arrays = _simulate(adapter, index, int(seeds[index]), None)
-                store.write(index, arrays)
-                bars.finished(index)
-                if on_written:
-                    on_written(index)
+                _record(store, bars, on_written, index, _simulate(adapter, index, int(seeds[index]), None))
         else:
             for index, arrays in _run_local(factory, todo, seeds, p, bars):
-                store.write(index, arrays)
-                bars.finished(index)
-                if on_written:
-                    on_written(index)
+                _record(store, bars, on_written, index, arrays)
     finally:
         bars.close()
     return EnsembleResult(todo, already, store.size, time.perf_counter() - t0, p, where)
+
+
+def _record(store: Any, bars: Any, on_written: Any, index: int, arrays: dict[str, np.ndarray]) -> None:
+    """Write one finished realization (its `done` flag last), then report it."""
+    store.write(index, arrays)
+    bars.finished(index)
+    if on_written:
+        on_written(index)
 
 
 def _run_local(
