@@ -5,6 +5,10 @@
 #include <algorithm>
 #include <array>
 #include <bit>
+#include <deque>
+#include <limits>
+#include <map>
+#include <mutex>
 #include <string>
 
 #include "core/error.hpp"
@@ -32,21 +36,31 @@ namespace detail {
 #define SL_POPCOUNT_KERNEL
 #endif
 
-SL_POPCOUNT_KERNEL std::size_t keep_matching(std::uint32_t* word_index, std::uint64_t* word_alive, std::size_t n,
-                                             const std::uint64_t* plane, const std::uint64_t* category,
-                                             std::size_t words, std::size_t K, std::int64_t* counts) {
-  for (std::size_t q = 0; q < K; ++q) counts[q] = 0;
+SL_POPCOUNT_KERNEL std::size_t keep_matching(const std::uint32_t* word_index, const std::uint64_t* word_alive,
+                                             std::size_t n, const std::uint64_t* plane, std::uint32_t* out_index,
+                                             std::uint64_t* out_alive, std::int64_t& total) {
   std::size_t out = 0;
+  std::int64_t t = 0;
   for (std::size_t i = 0; i < n; ++i) {
     const std::uint32_t w = word_index[i];
     const std::uint64_t a = word_alive[i] & plane[w];
-    if (!a) continue;
-    word_index[out] = w;
-    word_alive[out] = a;
-    ++out;
-    for (std::size_t q = 0; q < K; ++q) counts[q] += std::popcount(a & category[q * words + w]);
+    out_index[out] = w;
+    out_alive[out] = a;
+    out += a != 0;
+    t += std::popcount(a);
   }
+  total += t;
   return out;
+}
+
+SL_POPCOUNT_KERNEL void count_categories(const std::uint32_t* word_index, const std::uint64_t* word_alive,
+                                         std::size_t n, const std::uint64_t* category, std::size_t K,
+                                         std::int64_t* counts) {
+  for (std::size_t q = 0; q < K; ++q) counts[q] = 0;
+  for (std::size_t i = 0; i < n; ++i) {
+    const std::uint64_t* c = category + static_cast<std::size_t>(word_index[i]) * K;
+    for (std::size_t q = 0; q < K; ++q) counts[q] += std::popcount(word_alive[i] & c[q]);
+  }
 }
 
 }  // namespace detail
@@ -57,6 +71,13 @@ std::int64_t default_memory_limit() {
   if (pages <= 0 || page <= 0) return std::int64_t{4} << 30;
   return static_cast<std::int64_t>(pages) * page / 2;
 }
+
+struct PatternTree::Variants {
+  std::mutex mutex;
+  std::int64_t used = 0;  // bytes of the trees and variants so far
+  std::map<std::pair<int, std::vector<std::int32_t>>, int> ids;
+  std::deque<Level> list;
+};
 
 PatternTree::PatternTree(CategoricalImage ti, const Template& tpl, int levels, std::int64_t memory_limit)
     : ti_(std::move(ti)), template_(tpl) {
@@ -100,24 +121,68 @@ PatternTree::PatternTree(CategoricalImage ti, const Template& tpl, int levels, s
   if (used > memory_limit)
     throw MemoryLimitError("The memory_limit of " + mib(memory_limit) + " is below the " + mib(used) +
                            " the training image alone needs; raise memory_limit or use a smaller training image.");
-  for (int level = 0; level < levels; ++level) build_level(level, memory_limit, used);
+  std::vector<std::int32_t> identity(template_.size());
+  for (std::size_t i = 0; i < identity.size(); ++i) identity[i] = static_cast<std::int32_t>(i);
+  for (int level = 0; level < levels; ++level)
+    levels_.push_back(build_level(level, identity, std::numeric_limits<std::size_t>::max(), memory_limit, used));
+  memory_limit_ = memory_limit;
+  variants_ = std::make_shared<Variants>();
+  variants_->used = used;
 }
 
-void PatternTree::build_level(int level, std::int64_t memory_limit, std::int64_t& used) {
+int PatternTree::ordered_variant(int level, const std::vector<std::int32_t>& order) const {
+  require(level >= 0 && level < levels(), "level", "must be a level of the tree.");
+  require(order.size() == template_.size(), "order", "must hold every template node once.");
+  std::vector<char> seen(order.size(), 0);
+  for (std::int32_t i : order) {
+    require(i >= 0 && static_cast<std::size_t>(i) < order.size() && !seen[static_cast<std::size_t>(i)], "order",
+            "must hold every template node once.");
+    seen[static_cast<std::size_t>(i)] = 1;
+  }
+  Variants& v = *variants_;
+  std::lock_guard<std::mutex> lock(v.mutex);
+  auto key = std::make_pair(level, order);
+  if (auto it = v.ids.find(key); it != v.ids.end()) return it->second;
+  // Tree nodes are kept while they stay fewer than half the centres; deeper, the bit planes answer.
+  const std::size_t cap = std::max<std::size_t>(centres_.size() / 2, 4096);
+  std::int64_t used = v.used;
+  int id = -1;
+  try {
+    v.list.push_back(build_level(level, order, cap, memory_limit_, used));
+    v.used = used;
+    id = static_cast<int>(v.list.size()) - 1;
+  } catch (const MemoryLimitError&) {
+    // Over the limit: the caller uses the level's own tree (slower, same counting contract).
+  }
+  v.ids.emplace(std::move(key), id);
+  return id;
+}
+
+EventAnswer PatternTree::query_variant(int variant, const std::int32_t* index, const std::uint8_t* value, int m,
+                                       std::int64_t min_replicates, bool stop_when_pure, QueryScratch& sc) const {
+  // The deque only grows under the mutex, and an id is handed out after its level is in place.
+  return query_level(variants_->list[static_cast<std::size_t>(variant)], index, value, m, min_replicates,
+                     stop_when_pure, sc);
+}
+
+PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t> order, std::size_t node_cap,
+                                            std::int64_t memory_limit, std::int64_t& used) const {
   const std::size_t K = static_cast<std::size_t>(ti_.categories);
   const std::size_t S = K + 1;  // symbols: codes and `missing`
   const std::size_t D = template_.size();
   const std::size_t N = centres_.size();
   Level L;
+  L.order = std::move(order);
   L.delta.resize(D);
   for (std::size_t i = 0; i < D; ++i) {
-    const Offset& o = template_.offsets()[i];
+    const Offset& o = template_.offsets()[static_cast<std::size_t>(L.order[i])];
     L.delta[i] = ((Index{o[0]} << level) * padded_shape_[1] + (Index{o[1]} << level)) * padded_shape_[2] +
                  (Index{o[2]} << level);
   }
   const std::int64_t bytes_per_node = static_cast<std::int64_t>(4 * K + 8);
-  // Working memory of the build: two orderings of the centres, and the sorted centres kept.
-  const std::int64_t work = static_cast<std::int64_t>(N * (2 * sizeof(std::uint32_t) + sizeof(std::int64_t)));
+  // Working memory of the build: the centre order, the groups of one depth and the next, and the
+  // sorted centres kept.
+  const std::int64_t work = static_cast<std::int64_t>(N * (3 * sizeof(std::uint32_t) + sizeof(std::int64_t)));
   auto check = [&](std::size_t nodes) {
     const std::int64_t need = used + static_cast<std::int64_t>(nodes) * bytes_per_node + work;
     if (need > memory_limit)
@@ -131,68 +196,104 @@ void PatternTree::build_level(int level, std::int64_t memory_limit, std::int64_t
   L.counts.resize(K);
   for (std::size_t k = 0; k < K; ++k) L.counts[k] = static_cast<std::uint32_t>(root_counts_[k]);
   L.depth_start.push_back(0);
-  std::vector<std::uint32_t> order(N), scratch(N);
-  for (std::size_t i = 0; i < N; ++i) order[i] = static_cast<std::uint32_t>(i);
-  std::size_t depth_first = 0;  // id of the first node of the current depth
+  std::vector<std::uint32_t> order_of(N), tmp;
+  for (std::size_t i = 0; i < N; ++i) order_of[i] = static_cast<std::uint32_t>(i);
+  // Groups of centres sharing the prefix of the current depth, as [start, end) in order_of; a group of
+  // one centre is final and dropped. While tree nodes are stored, group g of depth d is node
+  // depth_first + g (every node has at least one centre); past tree_depth only the sort goes on.
+  std::vector<std::uint32_t> group_begin{0}, group_end{static_cast<std::uint32_t>(N)}, next_begin, next_end;
+  std::vector<std::uint32_t> group_node{0}, next_node;
+  bool storing = true;
+  L.tree_depth = 0;
   std::array<std::uint32_t, 256> bucket{};
   std::vector<std::uint32_t> bucket_counts(S * K);
   const std::uint8_t* padded = padded_.data();
-  for (std::size_t d = 0; d < D; ++d) {
+  auto symbol = [&](std::int64_t c, std::int64_t delta) {
+    const std::uint8_t s = padded[c + delta];
+    return s == CategoricalImage::kMasked ? static_cast<std::uint8_t>(K) : s;
+  };
+  for (std::size_t d = 0; d < D && !group_begin.empty(); ++d) {
     const std::int64_t delta = L.delta[d];
     const std::size_t depth_end = L.first_centre.size();
-    L.depth_start.push_back(static_cast<std::uint32_t>(depth_end));
-    L.first_child.resize(depth_end);
-    for (std::size_t j = depth_first; j < depth_end; ++j) {
-      L.first_child[j] = static_cast<std::uint32_t>(L.first_centre.size());
-      // The nodes of one depth partition the centres in order.
-      const std::uint32_t b = L.first_centre[j];
-      const std::uint32_t e = j + 1 < depth_end ? L.first_centre[j + 1] : static_cast<std::uint32_t>(N);
+    if (storing) {
+      L.depth_start.push_back(static_cast<std::uint32_t>(depth_end));
+      L.first_child.resize(depth_end, static_cast<std::uint32_t>(depth_end));
+    }
+    next_begin.clear();
+    next_end.clear();
+    next_node.clear();
+    std::size_t stored = depth_end;  // node ids of the next depth, if stored
+    for (std::size_t g = 0; g < group_begin.size(); ++g) {
+      const std::uint32_t b = group_begin[g], e = group_end[g];
       std::fill(bucket.begin(), bucket.begin() + static_cast<std::ptrdiff_t>(S), 0);
-      std::fill(bucket_counts.begin(), bucket_counts.end(), 0);
+      if (storing) std::fill(bucket_counts.begin(), bucket_counts.end(), 0);
       for (std::uint32_t p = b; p < e; ++p) {
-        const std::int64_t c = centres_[order[p]];
-        std::uint8_t s = padded[c + delta];
-        if (s == CategoricalImage::kMasked) s = static_cast<std::uint8_t>(K);
+        const std::int64_t c = centres_[order_of[p]];
+        const std::uint8_t s = symbol(c, delta);
         bucket[s] += 1;
-        bucket_counts[s * K + padded[c]] += 1;
+        if (storing) bucket_counts[s * K + padded[c]] += 1;
       }
-      // Stable counting sort of the node's centres by symbol; one child per non-empty symbol.
+      // Stable counting sort of the group's centres by symbol; one child per non-empty symbol.
       std::uint32_t start = b;
       std::array<std::uint32_t, 256> pos{};
+      if (storing) L.first_child[group_node[g]] = static_cast<std::uint32_t>(stored);
       for (std::size_t s = 0; s < S; ++s) {
-        pos[s] = start;
+        pos[s] = start - b;
         if (bucket[s] == 0) continue;
-        L.first_centre.push_back(start);
-        for (std::size_t k = 0; k < K; ++k) L.counts.push_back(bucket_counts[s * K + k]);
+        if (storing) {
+          L.first_centre.push_back(start);
+          for (std::size_t k = 0; k < K; ++k) L.counts.push_back(bucket_counts[s * K + k]);
+        }
+        if (bucket[s] > 1 || storing) {
+          next_begin.push_back(start);
+          next_end.push_back(start + bucket[s]);
+          next_node.push_back(static_cast<std::uint32_t>(stored));
+        }
+        stored += storing;
         start += bucket[s];
       }
-      for (std::uint32_t p = b; p < e; ++p) {
-        const std::int64_t c = centres_[order[p]];
-        std::uint8_t s = padded[c + delta];
-        if (s == CategoricalImage::kMasked) s = static_cast<std::uint8_t>(K);
-        scratch[pos[s]++] = order[p];
+      tmp.resize(e - b);
+      for (std::uint32_t p = b; p < e; ++p) tmp[pos[symbol(centres_[order_of[p]], delta)]++] = order_of[p];
+      std::copy(tmp.begin(), tmp.end(), order_of.begin() + b);
+    }
+    if (storing) {
+      check(L.first_centre.size());
+      if (L.first_centre.size() >= (std::size_t{1} << 32) - 1)
+        throw MemoryLimitError("The pattern tree of level " + std::to_string(level) +
+                               " would hold more than 2**32 nodes; use a template with fewer nodes.");
+      L.tree_depth = d + 1;
+      // Stop storing nodes when the next depth could pass the cap (it has at most S times as many).
+      if (L.first_centre.size() + next_begin.size() * S > node_cap && d + 1 < D) {
+        storing = false;
+        std::size_t out = 0;  // single centres need no more sorting
+        for (std::size_t g = 0; g < next_begin.size(); ++g)
+          if (next_end[g] - next_begin[g] > 1) {
+            next_begin[out] = next_begin[g];
+            next_end[out++] = next_end[g];
+          }
+        next_begin.resize(out);
+        next_end.resize(out);
       }
     }
-    check(L.first_centre.size());
-    if (L.first_centre.size() >= (std::size_t{1} << 32) - 1)
-      throw MemoryLimitError("The pattern tree of level " + std::to_string(level) +
-                             " would hold more than 2**32 nodes; use a template with fewer nodes.");
-    order.swap(scratch);
-    depth_first = depth_end;
+    group_begin.swap(next_begin);
+    group_end.swap(next_end);
+    group_node.swap(next_node);
   }
   const std::size_t total = L.first_centre.size();
   L.depth_start.push_back(static_cast<std::uint32_t>(total));
-  // Leaves have no children: their ranges are empty at the end of the array.
+  // Nodes of the last stored depth have no children: their ranges are empty at the end.
   L.first_child.resize(total + 1, static_cast<std::uint32_t>(total));
+  L.first_child[total] = static_cast<std::uint32_t>(total);
   L.sorted.resize(N);
-  for (std::size_t p = 0; p < N; ++p) L.sorted[p] = centres_[order[p]];
+  for (std::size_t p = 0; p < N; ++p) L.sorted[p] = centres_[order_of[p]];
   // Bit planes in pattern order (see Level).
   const std::size_t words = (N + 63) / 64;
   L.words = words;
   const std::size_t planes = D * K + K;
   const std::int64_t plane_bytes = static_cast<std::int64_t>(words * planes * sizeof(std::uint64_t));
   check(total + static_cast<std::size_t>(plane_bytes / bytes_per_node));
-  L.planes.assign(words * planes, 0);
+  L.planes.assign(words * D * K, 0);
+  L.category.assign(words * K, 0);
   for (std::size_t p = 0; p < N; ++p) {
     const std::int64_t c = L.sorted[p];
     const std::size_t w = p / 64;
@@ -201,13 +302,14 @@ void PatternTree::build_level(int level, std::int64_t memory_limit, std::int64_t
       const std::uint8_t v = padded[c + L.delta[i]];
       if (v != CategoricalImage::kMasked) L.planes[(i * K + v) * words + w] |= bit;
     }
-    L.planes[(D * K + padded[c]) * words + w] |= bit;
+    L.category[w * K + padded[c]] |= bit;
   }
   used += plane_bytes;
   L.first_centre.shrink_to_fit();
   L.counts.shrink_to_fit();
+  L.first_child.shrink_to_fit();
   used += static_cast<std::int64_t>(total) * bytes_per_node + static_cast<std::int64_t>(N * sizeof(std::int64_t));
-  levels_.push_back(std::move(L));
+  return L;
 }
 
 std::int64_t PatternTree::node_count(int level) const {
@@ -216,12 +318,18 @@ std::int64_t PatternTree::node_count(int level) const {
   return static_cast<std::int64_t>(levels_[static_cast<std::size_t>(level)].first_centre.size());
 }
 
-std::int64_t PatternTree::memory_bytes() const noexcept {
+std::int64_t PatternTree::memory_bytes() const {
+  auto bytes = [](const Level& L) {
+    return static_cast<std::int64_t>(
+        (L.first_child.size() + L.first_centre.size() + L.counts.size() + L.depth_start.size() + L.order.size()) *
+            sizeof(std::uint32_t) +
+        (L.sorted.size() + L.delta.size()) * sizeof(std::int64_t) +
+        (L.planes.size() + L.category.size()) * sizeof(std::uint64_t));
+  };
   std::int64_t b = static_cast<std::int64_t>(padded_.size() + centres_.size() * sizeof(std::int64_t));
-  for (const auto& L : levels_)
-    b += static_cast<std::int64_t>((L.first_child.size() + L.first_centre.size() + L.counts.size() +
-                                    L.depth_start.size()) * sizeof(std::uint32_t) +
-                                   L.sorted.size() * sizeof(std::int64_t) + L.planes.size() * sizeof(std::uint64_t));
+  for (const auto& L : levels_) b += bytes(L);
+  std::lock_guard<std::mutex> lock(variants_->mutex);
+  for (const auto& L : variants_->list) b += bytes(L);
   return b;
 }
 
@@ -234,7 +342,11 @@ std::int64_t PatternTree::node_bytes() const noexcept {
 
 EventAnswer PatternTree::query(int level, const std::int32_t* index, const std::uint8_t* value, int m,
                                std::int64_t min_replicates, bool stop_when_pure, QueryScratch& sc) const {
-  const Level& L = levels_[static_cast<std::size_t>(level)];
+  return query_level(levels_[static_cast<std::size_t>(level)], index, value, m, min_replicates, stop_when_pure, sc);
+}
+
+EventAnswer PatternTree::query_level(const Level& L, const std::int32_t* index, const std::uint8_t* value, int m,
+                                     std::int64_t min_replicates, bool stop_when_pure, QueryScratch& sc) const {
   const std::size_t K = static_cast<std::size_t>(ti_.categories);
   const std::uint8_t missing = static_cast<std::uint8_t>(K);
   sc.best.assign(root_counts_.begin(), root_counts_.end());
@@ -264,7 +376,7 @@ EventAnswer PatternTree::query(int level, const std::int32_t* index, const std::
     const std::size_t t = static_cast<std::size_t>(index[k]);
     // Marginalise the template nodes before the next informed one: follow every branch.
     while (depth < t) {
-      if (walking_is_dearer()) return check_centres(L, index, value, m, k, min_replicates, stop_when_pure, depth, ans, sc);
+      if (depth == L.tree_depth || walking_is_dearer()) return check_centres(L, index, value, m, k, min_replicates, stop_when_pure, depth, ans, sc);
       sc.next.clear();
       for (std::uint32_t j : sc.frontier)
         for (std::uint32_t c = fc[j]; c < fc[j + 1]; ++c) sc.next.push_back(c);
@@ -272,7 +384,8 @@ EventAnswer PatternTree::query(int level, const std::int32_t* index, const std::
       sc.frontier.swap(sc.next);
       ++depth;
     }
-    if (walking_is_dearer()) return check_centres(L, index, value, m, k, min_replicates, stop_when_pure, depth, ans, sc);
+    if (depth == L.tree_depth || walking_is_dearer())
+      return check_centres(L, index, value, m, k, min_replicates, stop_when_pure, depth, ans, sc);
     // The informed node: keep the child holding its value (children come in symbol order).
     sc.next.clear();
     std::fill(sc.counts.begin(), sc.counts.end(), 0);
@@ -313,7 +426,7 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
   const std::uint32_t depth_end = L.depth_start[depth + 1];
   const std::size_t words = L.words;
   const std::uint64_t* planes = L.planes.data();
-  const std::uint64_t* category = planes + L.delta.size() * K * words;
+  const std::uint64_t* category = L.category.data();
   ans.scanned = true;
   // The frontier's centres as (word, bits) pairs; neighbouring ranges may share a word.
   sc.word_index.clear();
@@ -335,27 +448,39 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
     }
   }
   // Add the informed nodes one at a time, keeping only words with centres still matching; stop
-  // when too few replicates remain (node dropping) or, in simulation, when one category holds all.
+  // when too few replicates remain (node dropping). Only totals are needed for that, so the
+  // categories are counted once for the set kept, and, in simulation, now and then to stop early
+  // once one category holds every match (adding nodes cannot change the probabilities then).
+  sc.next_index.resize(sc.word_index.size());
+  sc.next_alive.resize(sc.word_alive.size());
   sc.counts.resize(K);
+  bool counted = true;  // sc.best holds the counts of the set kept
+  int passes = 0;
   for (std::size_t n = static_cast<std::size_t>(k); n < static_cast<std::size_t>(m); ++n) {
     const std::uint64_t* plane = planes + (static_cast<std::size_t>(index[n]) * K + value[n]) * words;
+    std::int64_t total = 0;
     const std::size_t out = detail::keep_matching(sc.word_index.data(), sc.word_alive.data(), sc.word_index.size(),
-                                                  plane, category, words, K, sc.counts.data());
+                                                  plane, sc.next_index.data(), sc.next_alive.data(), total);
+    ans.visited += 64 * static_cast<std::int64_t>(sc.word_index.size());  // centres, 64 at a time
+    if (total < min_replicates || total == 0) break;
+    sc.word_index.swap(sc.next_index);
+    sc.word_alive.swap(sc.next_alive);
     sc.word_index.resize(out);
     sc.word_alive.resize(out);
-    ans.visited += static_cast<std::int64_t>(out) * 64;
-    std::int64_t total = 0;
-    int nonzero = 0;
-    for (std::size_t q = 0; q < K; ++q) {
-      total += sc.counts[q];
-      nonzero += sc.counts[q] > 0;
-    }
-    if (total < min_replicates || total == 0) break;
-    sc.best = sc.counts;
     ans.replicates = total;
     ans.kept = static_cast<int>(n + 1);
-    if (stop_when_pure && nonzero <= 1) break;
+    counted = false;
+    if (stop_when_pure && (++passes % 4 == 0 || out <= 8)) {
+      detail::count_categories(sc.word_index.data(), sc.word_alive.data(), out, category, K, sc.best.data());
+      counted = true;
+      int nonzero = 0;
+      for (std::size_t q = 0; q < K; ++q) nonzero += sc.best[q] > 0;
+      if (nonzero <= 1) break;
+    }
   }
+  if (!counted)
+    detail::count_categories(sc.word_index.data(), sc.word_alive.data(), sc.word_index.size(), category, K,
+                             sc.best.data());
   return ans;
 }
 

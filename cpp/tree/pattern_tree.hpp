@@ -17,6 +17,12 @@
 // centre category), a uint32 child start and a uint32 centre start: 4 K + 8 bytes. A node's symbol
 // is read from the TI at its first centre, so it needs no storage.
 //
+// Query orders. The trees of `levels` take the template nodes in template order (nearest first).
+// For staged simulation a tree can also be asked for a variant of a level that takes the nodes in
+// another order (`ordered_variant`): its centres are sorted by that order, its tree nodes are kept
+// only down to a depth where they stay few (`tree_depth`), and deeper queries finish on the bit
+// planes, which cost bits per centre rather than nodes per pattern.
+//
 // Queries walk the tree depth by depth, following every child at template nodes outside the event
 // (marginalisation) and only the matching child at informed ones. When the frontier grows so wide
 // that walking on would cost more than checking its centres one by one, the remaining informed
@@ -25,6 +31,7 @@
 #pragma once
 
 #include <cstdint>
+#include <memory>
 #include <vector>
 
 #include "core/grid.hpp"
@@ -52,8 +59,8 @@ struct EventAnswer {
 struct QueryScratch {
   std::vector<std::uint32_t> frontier, next;
   std::vector<std::int64_t> counts, best;            // K each
-  std::vector<std::uint32_t> word_index;             // candidate words of the bit planes
-  std::vector<std::uint64_t> word_alive;             // their centres still matching
+  std::vector<std::uint32_t> word_index, next_index;  // candidate words of the bit planes
+  std::vector<std::uint64_t> word_alive, next_alive;  // their centres still matching
 };
 
 class PatternTree {
@@ -68,7 +75,8 @@ class PatternTree {
   const Template& base_template() const noexcept { return template_; }
   std::size_t template_size() const noexcept { return template_.size(); }
   std::int64_t node_count(int level) const;
-  std::int64_t memory_bytes() const noexcept;
+  // Bytes of the trees, their bit planes and the ordered variants built so far.
+  std::int64_t memory_bytes() const;
   // Bytes of the per-node arrays (counts, child and centre starts) over all levels.
   std::int64_t node_bytes() const noexcept;
   // Centre counts per category over the whole TI (the root's counts).
@@ -83,24 +91,40 @@ class PatternTree {
   EventAnswer query(int level, const std::int32_t* index, const std::uint8_t* value, int m,
                     std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
 
+  // The variant of `level` that takes the template nodes in `order` (a permutation of 0..D-1), built
+  // on first request and kept; thread-safe. Returns its id for query_variant, or -1 when building it
+  // would pass the memory limit (the caller then uses the level's own tree).
+  int ordered_variant(int level, const std::vector<std::int32_t>& order) const;
+  // query() on a variant: `index` holds strictly increasing positions in the variant's order.
+  EventAnswer query_variant(int variant, const std::int32_t* index, const std::uint8_t* value, int m,
+                            std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
+
   // Same answer as query, by checking every centre on the TI (the reference path).
   EventAnswer scan(int level, const std::int32_t* index, const std::uint8_t* value, int m,
                    std::int64_t min_replicates, QueryScratch& scratch) const;
 
  private:
   struct Level {
+    std::vector<std::int32_t> order;          // template index at each query position
+    std::size_t tree_depth = 0;               // depths stored as tree nodes (all D for a full tree)
     std::vector<std::uint32_t> first_child;   // per node + sentinel
     std::vector<std::uint32_t> first_centre;  // per node: start of its range in `sorted`
     std::vector<std::uint32_t> counts;        // K per node
     std::vector<std::uint32_t> depth_start;   // first node of each depth 0..D, then the node count
     std::vector<std::int64_t> sorted;         // padded index of each centre, in pattern order
-    std::vector<std::int64_t> delta;          // padded flat offset of each template node
+    std::vector<std::int64_t> delta;          // padded flat offset of each query position
     // Bit planes over `sorted`, one bit per centre, `words` 64-bit words per plane: plane i * K + v
-    // is "template node i holds code v", plane D * K + q is "the centre holds code q".
-    std::vector<std::uint64_t> planes;
+    // is "the node at query position i holds code v". `category` holds K words per word of the
+    // planes: bit b of word w * K + q is "centre 64 w + b holds code q".
+    std::vector<std::uint64_t> planes, category;
     std::size_t words = 0;
   };
-  void build_level(int level, std::int64_t memory_limit, std::int64_t& used);
+  // Builds the tree of `level` for the query order `order`, storing tree nodes while there are at most
+  // `node_cap` of them; adds its bytes to `used` and throws MemoryLimitError past memory_limit.
+  Level build_level(int level, std::vector<std::int32_t> order, std::size_t node_cap, std::int64_t memory_limit,
+                    std::int64_t& used) const;
+  EventAnswer query_level(const Level& L, const std::int32_t* index, const std::uint8_t* value, int m,
+                          std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
   // Finishes a query by checking informed nodes k.. on the TI for the centres of `frontier`
   // (nodes at one depth); `ans` and scratch.best hold the answer for the first k nodes.
   EventAnswer check_centres(const Level& L, const std::int32_t* index, const std::uint8_t* value, int m, int k,
@@ -115,13 +139,21 @@ class PatternTree {
   std::vector<std::int64_t> centres_;      // padded flat index of every unmasked TI cell
   std::vector<std::int64_t> root_counts_;  // per category
   std::vector<Level> levels_;
+  std::int64_t memory_limit_ = 0;
+  // Ordered variants, built on request (deque: references stay valid as it grows).
+  struct Variants;
+  std::shared_ptr<Variants> variants_;
 };
 
 namespace detail {
-// Keeps the candidate words whose centres still match `plane` (compacting both arrays in place),
-// counts the survivors per centre category into counts[0..K), and returns how many words remain.
-std::size_t keep_matching(std::uint32_t* word_index, std::uint64_t* word_alive, std::size_t n, const std::uint64_t* plane,
-                          const std::uint64_t* category, std::size_t words, std::size_t K, std::int64_t* counts);
+// Copies the candidate words whose centres still match `plane` to out_index/out_alive, returns how
+// many there are and adds the centres still matching to `total`.
+std::size_t keep_matching(const std::uint32_t* word_index, const std::uint64_t* word_alive, std::size_t n,
+                          const std::uint64_t* plane, std::uint32_t* out_index, std::uint64_t* out_alive,
+                          std::int64_t& total);
+// Counts the candidate centres per centre category into counts[0..K) (`category`: K words per word).
+void count_categories(const std::uint32_t* word_index, const std::uint64_t* word_alive, std::size_t n,
+                      const std::uint64_t* category, std::size_t K, std::int64_t* counts);
 }  // namespace detail
 
 // Half of the physical memory: the default limit for building trees.

@@ -1,6 +1,7 @@
 #include "tree/tree_sim.hpp"
 
 #include <algorithm>
+#include <array>
 #include <chrono>
 #include <cmath>
 #include <string>
@@ -23,6 +24,37 @@ Ijk nearest_level_node(const Grid& grid, const Ijk& c, int level) {
     out[a] = std::min(q, grid.level_extent(level, a) - 1) * s;
   }
   return out;
+}
+
+// Staged refinement of a multiple-grid level. A cell simulated at level g < coarsest has a parity
+// class p (bit a set when its level-g coordinate along axis a is odd; p = 0 are nodes of level g + 1).
+// The classes are simulated one after the other, in kStageOrder, each on its own random path; the
+// level's own nodes released by relocated hard data (class 0) come last. A template node o of a cell
+// of class p lands on class (p + o) mod 2, so which nodes are informed when the stage starts is known
+// in advance: the coarse nodes and those of earlier stages. Their queries use a tree that takes those
+// nodes first, so the walk follows one branch instead of marginalising the uninformed ones.
+constexpr std::array<int, 8> kStageOrder{1, 2, 4, 3, 5, 6, 7, 0};
+
+int stage_rank(int parity) {
+  for (int r = 0; r < 8; ++r)
+    if (kStageOrder[static_cast<std::size_t>(r)] == parity) return r;
+  return 8;
+}
+
+int parity_of(const Offset& o) { return (o[0] & 1) << 2 | (o[1] & 1) << 1 | (o[2] & 1); }
+
+// Query order for cells of class `parity`: template nodes informed at the stage's start, then the
+// class's own nodes (informed as the stage goes), then nodes of later stages; nearest first in each.
+std::vector<std::int32_t> stage_order(const Template& tpl, int parity) {
+  std::vector<std::int32_t> order;
+  const int rank = stage_rank(parity);
+  for (int group = 0; group < 3; ++group)
+    for (std::size_t i = 0; i < tpl.size(); ++i) {
+      const int q = parity_of(tpl.offsets()[i]) ^ parity;
+      const int g = (q == 0 || stage_rank(q) < rank) ? 0 : q == parity ? 1 : 2;
+      if (g == group) order.push_back(static_cast<std::int32_t>(i));
+    }
+  return order;
 }
 
 struct Worker {
@@ -116,11 +148,26 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
                                    std::vector<double>(static_cast<std::size_t>(levels), 0.0),
                                    std::vector<double>(static_cast<std::size_t>(levels), 0.0)};
 
+  // Per (tree, parity class) at the current level: the ordered variant to query and its node order
+  // (variant -1: the level's own tree, nodes in template order).
+  struct StageQuery {
+    int variant = -1;
+    std::vector<std::int32_t> order;
+  };
+  std::vector<StageQuery> stage_query(trees.size() * 8);
+  int current_step_shift = 0;
+  auto parity_of_cell = [&](Index cell) {
+    const Ijk c = grid.cell(cell);
+    return static_cast<int>(((c[0] >> current_step_shift) & 1) << 2 | ((c[1] >> current_step_shift) & 1) << 1 |
+                            ((c[2] >> current_step_shift) & 1));
+  };
+
   WorkControl ctl;
   ctl.total = N;
   std::vector<Index> released;  // nodes that held relocated hard data at the previous level
   for (int level = levels - 1; level >= 0; --level) {
     const Index step = Grid::level_step(level);
+    current_step_shift = level;
     // Hard data off this level's nodes are moved to the nearest free node so that the coarse
     // structure sees them (Strebelle 2002); they are taken back once the level is done.
     std::vector<Index> relocated;
@@ -136,13 +183,38 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
         relocated.push_back(target);
       }
     }
-    std::vector<Index> path = level_cells(grid, level, levels - 1);
-    path.insert(path.end(), released.begin(), released.end());
-    path.erase(std::remove_if(path.begin(), path.end(), [&](Index c) { return sim[static_cast<std::size_t>(c)] >= 0; }),
-               path.end());
-    std::sort(path.begin(), path.end());
-    shuffle_path(path, opt.seed, level);
-    const auto starts = conflict_free_batches(grid, level, reach, path, opt.max_batch);
+    std::vector<Index> cells = level_cells(grid, level, levels - 1);
+    cells.insert(cells.end(), released.begin(), released.end());
+    cells.erase(std::remove_if(cells.begin(), cells.end(), [&](Index c) { return sim[static_cast<std::size_t>(c)] >= 0; }),
+                cells.end());
+    // One stage per parity class at levels with a coarser one (see kStageOrder), else one stage.
+    const bool staged = level < levels - 1;
+    std::array<std::vector<Index>, 8> stage_cells;
+    for (Index cell : cells) stage_cells[staged ? static_cast<std::size_t>(parity_of_cell(cell)) : 0].push_back(cell);
+    std::vector<Index> path;
+    std::vector<std::int64_t> starts{0};
+    for (int p : kStageOrder) {
+      std::vector<Index>& part = stage_cells[static_cast<std::size_t>(p)];
+      if (part.empty()) continue;
+      std::sort(part.begin(), part.end());
+      shuffle_path(part, opt.seed, level);
+      const auto part_starts = conflict_free_batches(grid, level, reach, part, opt.max_batch);
+      const auto offset = static_cast<std::int64_t>(path.size());
+      for (std::size_t b = 1; b < part_starts.size(); ++b) starts.push_back(offset + part_starts[b]);
+      path.insert(path.end(), part.begin(), part.end());
+      // Each class's cells query trees that take the nodes informed at its stage's start first.
+      for (std::size_t t = 0; t < trees.size(); ++t) {
+        StageQuery& q = stage_query[t * 8 + static_cast<std::size_t>(p)];
+        q = StageQuery{};
+        if (!staged) continue;
+        std::vector<std::int32_t> order = stage_order(trees[t]->base_template(), p);
+        bool identity = true;
+        for (std::size_t i = 0; i < order.size(); ++i) identity = identity && order[i] == static_cast<std::int32_t>(i);
+        if (identity) continue;
+        q.variant = trees[t]->ordered_variant(level, order);
+        if (q.variant >= 0) q.order = std::move(order);
+      }
+    }
     // Preparing a level of a large grid takes a moment: give Ctrl-C a chance before running it.
     if (poll && !poll(ctl.done.load(), ctl.total)) throw Cancelled();
     std::vector<std::int64_t> snapshot(counts);  // proportions seen by one batch
@@ -155,11 +227,13 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       const Ijk c = grid.cell(cell);
       const PatternTree& t = tree_of(cell);
       const std::size_t zone_id = zone.empty() ? 0 : zone[static_cast<std::size_t>(cell)];
-      const std::vector<Offset>* offsets = &t.base_template().offsets();
-      // Data event: informed template nodes, nearest first, up to the cap on conditioning nodes.
+      const std::vector<Offset>& offsets = t.base_template().offsets();
+      const StageQuery& sq = stage_query[zone_id * 8 + static_cast<std::size_t>(staged ? parity_of_cell(cell) : 0)];
+      const std::int32_t* order = sq.variant >= 0 ? sq.order.data() : nullptr;
+      // Data event: informed template nodes in query order, up to the cap on conditioning nodes.
       int m = 0;
-      for (std::size_t i = 0; i < offsets->size() && m < cap; ++i) {
-        const Offset& o = (*offsets)[i];
+      for (std::size_t i = 0; i < offsets.size() && m < cap; ++i) {
+        const Offset& o = offsets[order ? static_cast<std::size_t>(order[i]) : i];
         const Ijk q{c[0] + Index{o[0]} * step, c[1] + Index{o[1]} * step, c[2] + Index{o[2]} * step};
         if (!grid.contains(q)) continue;
         const std::int16_t v = sim[static_cast<std::size_t>(grid.index(q))];
@@ -169,7 +243,9 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
         ++m;
       }
       const double* prior = priors.data() + zone_id * Ks;
-      const EventAnswer ans = t.query(level, w.index.data(), w.value.data(), m, opt.min_replicates, true, w.scratch);
+      const EventAnswer ans =
+          sq.variant >= 0 ? t.query_variant(sq.variant, w.index.data(), w.value.data(), m, opt.min_replicates, true, w.scratch)
+                          : t.query(level, w.index.data(), w.value.data(), m, opt.min_replicates, true, w.scratch);
       w.informed += m;
       w.kept += ans.kept;
       w.scans += ans.scanned;
