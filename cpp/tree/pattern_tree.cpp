@@ -5,7 +5,6 @@
 #include <algorithm>
 #include <array>
 #include <bit>
-#include <deque>
 #include <limits>
 #include <map>
 #include <mutex>
@@ -75,8 +74,8 @@ std::int64_t default_memory_limit() {
 struct PatternTree::Variants {
   std::mutex mutex;
   std::int64_t used = 0;  // bytes of the trees and variants so far
-  std::map<std::pair<int, std::vector<std::int32_t>>, int> ids;
-  std::deque<Level> list;
+  // nullptr: over the memory limit. Map nodes do not move, so handed-out pointers stay valid.
+  std::map<std::pair<int, std::vector<std::int32_t>>, std::unique_ptr<Level>> built;
 };
 
 PatternTree::PatternTree(CategoricalImage ti, const Template& tpl, int levels, std::int64_t memory_limit)
@@ -124,13 +123,21 @@ PatternTree::PatternTree(CategoricalImage ti, const Template& tpl, int levels, s
   std::vector<std::int32_t> identity(template_.size());
   for (std::size_t i = 0; i < identity.size(); ++i) identity[i] = static_cast<std::int32_t>(i);
   for (int level = 0; level < levels; ++level)
-    levels_.push_back(build_level(level, identity, std::numeric_limits<std::size_t>::max(), memory_limit, used));
+    levels_.push_back(build_level(level, identity, node_cap(), memory_limit, used));
   memory_limit_ = memory_limit;
   variants_ = std::make_shared<Variants>();
   variants_->used = used;
 }
 
-int PatternTree::ordered_variant(int level, const std::vector<std::int32_t>& order) const {
+std::size_t PatternTree::node_cap() const {
+  // Deep tree nodes mostly hold one centre each and cost 4 K + 8 bytes, while the bit planes answer
+  // those depths for K + 1 bits a centre and node. Measured on a 1M-cell, 50-node, 3-category TI:
+  // with a cap of twice the centres, queries took about 1.5 times as long as with full trees, in a
+  // sixth of the memory (1.3 GB of full trees for a 250,000-cell TI).
+  return std::max<std::size_t>(2 * centres_.size(), 4096);
+}
+
+const PatternTree::Level* PatternTree::ordered_variant(int level, const std::vector<std::int32_t>& order) const {
   require(level >= 0 && level < levels(), "level", "must be a level of the tree.");
   require(order.size() == template_.size(), "order", "must hold every template node once.");
   std::vector<char> seen(order.size(), 0);
@@ -140,29 +147,35 @@ int PatternTree::ordered_variant(int level, const std::vector<std::int32_t>& ord
     seen[static_cast<std::size_t>(i)] = 1;
   }
   Variants& v = *variants_;
-  std::lock_guard<std::mutex> lock(v.mutex);
   auto key = std::make_pair(level, order);
-  if (auto it = v.ids.find(key); it != v.ids.end()) return it->second;
-  // Tree nodes are kept while they stay fewer than half the centres; deeper, the bit planes answer.
-  const std::size_t cap = std::max<std::size_t>(centres_.size() / 2, 4096);
-  std::int64_t used = v.used;
-  int id = -1;
-  try {
-    v.list.push_back(build_level(level, order, cap, memory_limit_, used));
-    v.used = used;
-    id = static_cast<int>(v.list.size()) - 1;
-  } catch (const MemoryLimitError&) {
-    // Over the limit: the caller uses the level's own tree (slower, same counting contract).
+  std::int64_t used = 0;
+  {
+    std::lock_guard<std::mutex> lock(v.mutex);
+    if (auto it = v.built.find(key); it != v.built.end()) return it->second.get();
+    used = v.used;
   }
-  v.ids.emplace(std::move(key), id);
-  return id;
+  // Built outside the lock, so several variants can be built at once; the memory limit is checked
+  // again when the result is kept.
+  std::unique_ptr<Level> made;
+  const std::int64_t start = used;
+  try {
+    made = std::make_unique<Level>(build_level(level, order, node_cap(), memory_limit_, used));
+  } catch (const MemoryLimitError&) {
+    // Over the limit: the caller uses the level's own tree.
+  }
+  const std::int64_t bytes = used - start;
+  std::lock_guard<std::mutex> lock(v.mutex);
+  if (auto it = v.built.find(key); it != v.built.end()) return it->second.get();  // another thread was first
+  if (made && v.used + bytes > memory_limit_) made.reset();  // variants kept meanwhile took the room
+  if (made) v.used += bytes;
+  const Level* out = made.get();
+  v.built.emplace(std::move(key), std::move(made));
+  return out;
 }
 
-EventAnswer PatternTree::query_variant(int variant, const std::int32_t* index, const std::uint8_t* value, int m,
-                                       std::int64_t min_replicates, bool stop_when_pure, QueryScratch& sc) const {
-  // The deque only grows under the mutex, and an id is handed out after its level is in place.
-  return query_level(variants_->list[static_cast<std::size_t>(variant)], index, value, m, min_replicates,
-                     stop_when_pure, sc);
+EventAnswer PatternTree::query_variant(const Level& variant, const std::int32_t* index, const std::uint8_t* value,
+                                       int m, std::int64_t min_replicates, bool stop_when_pure, QueryScratch& sc) const {
+  return query_level(variant, index, value, m, min_replicates, stop_when_pure, sc);
 }
 
 PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t> order, std::size_t node_cap,
@@ -182,7 +195,7 @@ PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t>
   const std::int64_t bytes_per_node = static_cast<std::int64_t>(4 * K + 8);
   // Working memory of the build: the centre order, the groups of one depth and the next, and the
   // sorted centres kept.
-  const std::int64_t work = static_cast<std::int64_t>(N * (3 * sizeof(std::uint32_t) + sizeof(std::int64_t)));
+  const std::int64_t work = static_cast<std::int64_t>(N * (3 * sizeof(std::uint32_t) + 2 * sizeof(std::int64_t) + 1));
   auto check = [&](std::size_t nodes) {
     const std::int64_t need = used + static_cast<std::int64_t>(nodes) * bytes_per_node + work;
     if (need > memory_limit)
@@ -196,16 +209,18 @@ PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t>
   L.counts.resize(K);
   for (std::size_t k = 0; k < K; ++k) L.counts[k] = static_cast<std::uint32_t>(root_counts_[k]);
   L.depth_start.push_back(0);
-  std::vector<std::uint32_t> order_of(N), tmp;
-  for (std::size_t i = 0; i < N; ++i) order_of[i] = static_cast<std::uint32_t>(i);
-  // Groups of centres sharing the prefix of the current depth, as [start, end) in order_of; a group of
+  // The centres (padded indices) in pattern order so far, and each one's symbol at the current depth:
+  // one TI read per centre and depth.
+  std::vector<std::int64_t> cells(centres_), tmp;
+  std::vector<std::uint8_t> sym(N);
+  // Groups of centres sharing the prefix of the current depth, as [start, end) in cells; a group of
   // one centre is final and dropped. While tree nodes are stored, group g of depth d is node
   // depth_first + g (every node has at least one centre); past tree_depth only the sort goes on.
   std::vector<std::uint32_t> group_begin{0}, group_end{static_cast<std::uint32_t>(N)}, next_begin, next_end;
   std::vector<std::uint32_t> group_node{0}, next_node;
   bool storing = true;
   L.tree_depth = 0;
-  std::array<std::uint32_t, 256> bucket{};
+  std::array<std::uint32_t, 256> bucket{}, pos;  // per symbol: centres, then next slot
   std::vector<std::uint32_t> bucket_counts(S * K);
   const std::uint8_t* padded = padded_.data();
   auto symbol = [&](std::int64_t c, std::int64_t delta) {
@@ -228,14 +243,14 @@ PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t>
       std::fill(bucket.begin(), bucket.begin() + static_cast<std::ptrdiff_t>(S), 0);
       if (storing) std::fill(bucket_counts.begin(), bucket_counts.end(), 0);
       for (std::uint32_t p = b; p < e; ++p) {
-        const std::int64_t c = centres_[order_of[p]];
+        const std::int64_t c = cells[p];
         const std::uint8_t s = symbol(c, delta);
+        sym[p] = s;
         bucket[s] += 1;
         if (storing) bucket_counts[s * K + padded[c]] += 1;
       }
       // Stable counting sort of the group's centres by symbol; one child per non-empty symbol.
       std::uint32_t start = b;
-      std::array<std::uint32_t, 256> pos{};
       if (storing) L.first_child[group_node[g]] = static_cast<std::uint32_t>(stored);
       for (std::size_t s = 0; s < S; ++s) {
         pos[s] = start - b;
@@ -253,8 +268,8 @@ PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t>
         start += bucket[s];
       }
       tmp.resize(e - b);
-      for (std::uint32_t p = b; p < e; ++p) tmp[pos[symbol(centres_[order_of[p]], delta)]++] = order_of[p];
-      std::copy(tmp.begin(), tmp.end(), order_of.begin() + b);
+      for (std::uint32_t p = b; p < e; ++p) tmp[pos[sym[p]]++] = cells[p];
+      std::copy(tmp.begin(), tmp.end(), cells.begin() + b);
     }
     if (storing) {
       check(L.first_centre.size());
@@ -284,8 +299,7 @@ PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t>
   // Nodes of the last stored depth have no children: their ranges are empty at the end.
   L.first_child.resize(total + 1, static_cast<std::uint32_t>(total));
   L.first_child[total] = static_cast<std::uint32_t>(total);
-  L.sorted.resize(N);
-  for (std::size_t p = 0; p < N; ++p) L.sorted[p] = centres_[order_of[p]];
+  L.sorted = std::move(cells);
   // Bit planes in pattern order (see Level).
   const std::size_t words = (N + 63) / 64;
   L.words = words;
@@ -329,7 +343,8 @@ std::int64_t PatternTree::memory_bytes() const {
   std::int64_t b = static_cast<std::int64_t>(padded_.size() + centres_.size() * sizeof(std::int64_t));
   for (const auto& L : levels_) b += bytes(L);
   std::lock_guard<std::mutex> lock(variants_->mutex);
-  for (const auto& L : variants_->list) b += bytes(L);
+  for (const auto& [key, L] : variants_->built)
+    if (L) b += bytes(*L);
   return b;
 }
 

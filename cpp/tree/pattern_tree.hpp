@@ -91,19 +91,22 @@ class PatternTree {
   EventAnswer query(int level, const std::int32_t* index, const std::uint8_t* value, int m,
                     std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
 
-  // The variant of `level` that takes the template nodes in `order` (a permutation of 0..D-1), built
-  // on first request and kept; thread-safe. Returns its id for query_variant, or -1 when building it
-  // would pass the memory limit (the caller then uses the level's own tree).
-  int ordered_variant(int level, const std::vector<std::int32_t>& order) const;
-  // query() on a variant: `index` holds strictly increasing positions in the variant's order.
-  EventAnswer query_variant(int variant, const std::int32_t* index, const std::uint8_t* value, int m,
-                            std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
-
   // Same answer as query, by checking every centre on the TI (the reference path).
   EventAnswer scan(int level, const std::int32_t* index, const std::uint8_t* value, int m,
                    std::int64_t min_replicates, QueryScratch& scratch) const;
 
- private:
+  struct Level;
+  // The variant of `level` that takes the template nodes in `order` (a permutation of 0..D-1), built
+  // on first request and kept while the tree lives; thread-safe (requests from several threads build
+  // in parallel). Returns nullptr when building it would pass the memory limit (the caller then
+  // uses the level's own tree: same counts, slower).
+  const Level* ordered_variant(int level, const std::vector<std::int32_t>& order) const;
+  // query() on a variant: `index` holds strictly increasing positions in the variant's order.
+  EventAnswer query_variant(const Level& variant, const std::int32_t* index, const std::uint8_t* value, int m,
+                            std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
+
+  // Layout of one level's tree (public so that variants can be handed out; read it through the
+  // methods above).
   struct Level {
     std::vector<std::int32_t> order;          // template index at each query position
     std::size_t tree_depth = 0;               // depths stored as tree nodes (all D for a full tree)
@@ -119,10 +122,14 @@ class PatternTree {
     std::vector<std::uint64_t> planes, category;
     std::size_t words = 0;
   };
+
+ private:
   // Builds the tree of `level` for the query order `order`, storing tree nodes while there are at most
   // `node_cap` of them; adds its bytes to `used` and throws MemoryLimitError past memory_limit.
   Level build_level(int level, std::vector<std::int32_t> order, std::size_t node_cap, std::int64_t memory_limit,
                     std::int64_t& used) const;
+  // Tree nodes stored per level at most; deeper depths are answered on the bit planes.
+  std::size_t node_cap() const;
   EventAnswer query_level(const Level& L, const std::int32_t* index, const std::uint8_t* value, int m,
                           std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
   // Finishes a query by checking informed nodes k.. on the TI for the centres of `frontier`
@@ -140,7 +147,7 @@ class PatternTree {
   std::vector<std::int64_t> root_counts_;  // per category
   std::vector<Level> levels_;
   std::int64_t memory_limit_ = 0;
-  // Ordered variants, built on request (deque: references stay valid as it grows).
+  // Ordered variants, built on request.
   struct Variants;
   std::shared_ptr<Variants> variants_;
 };

@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <array>
+#include <atomic>
 #include <chrono>
 #include <cmath>
 #include <string>
@@ -151,7 +152,7 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
   // Per (tree, parity class) at the current level: the ordered variant to query and its node order
   // (variant -1: the level's own tree, nodes in template order).
   struct StageQuery {
-    int variant = -1;
+    const PatternTree::Level* variant = nullptr;
     std::vector<std::int32_t> order;
   };
   std::vector<StageQuery> stage_query(trees.size() * 8);
@@ -202,18 +203,34 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       const auto offset = static_cast<std::int64_t>(path.size());
       for (std::size_t b = 1; b < part_starts.size(); ++b) starts.push_back(offset + part_starts[b]);
       path.insert(path.end(), part.begin(), part.end());
-      // Each class's cells query trees that take the nodes informed at its stage's start first.
+      for (std::size_t t = 0; t < trees.size(); ++t) stage_query[t * 8 + static_cast<std::size_t>(p)] = StageQuery{};
+      if (!staged) continue;
+      // The class's cells query trees that take the nodes informed at its stage's start first.
       for (std::size_t t = 0; t < trees.size(); ++t) {
-        StageQuery& q = stage_query[t * 8 + static_cast<std::size_t>(p)];
-        q = StageQuery{};
-        if (!staged) continue;
         std::vector<std::int32_t> order = stage_order(trees[t]->base_template(), p);
         bool identity = true;
         for (std::size_t i = 0; i < order.size(); ++i) identity = identity && order[i] == static_cast<std::int32_t>(i);
-        if (identity) continue;
-        q.variant = trees[t]->ordered_variant(level, order);
-        if (q.variant >= 0) q.order = std::move(order);
+        if (!identity) stage_query[t * 8 + static_cast<std::size_t>(p)].order = std::move(order);
       }
+    }
+    // Build (or find) the ordered trees of this level, one per worker at a time.
+    {
+      std::vector<std::size_t> wanted;
+      for (std::size_t i = 0; i < stage_query.size(); ++i)
+        if (!stage_query[i].order.empty()) wanted.push_back(i);
+      std::atomic<std::size_t> next{0};
+      WorkControl build_ctl;
+      const int builders = std::min<int>(threads, static_cast<int>(std::max<std::size_t>(wanted.size(), 1)));
+      run_supervised(
+          builders,
+          [&](int, int) {
+            for (std::size_t j; !build_ctl.cancelled() && (j = next.fetch_add(1)) < wanted.size();) {
+              StageQuery& q = stage_query[wanted[j]];
+              q.variant = trees[wanted[j] / 8]->ordered_variant(level, q.order);
+              if (!q.variant) q.order.clear();
+            }
+          },
+          build_ctl, [&](std::int64_t, std::int64_t) { return !poll || poll(ctl.done.load(), ctl.total); });
     }
     // Preparing a level of a large grid takes a moment: give Ctrl-C a chance before running it.
     if (poll && !poll(ctl.done.load(), ctl.total)) throw Cancelled();
@@ -229,7 +246,7 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       const std::size_t zone_id = zone.empty() ? 0 : zone[static_cast<std::size_t>(cell)];
       const std::vector<Offset>& offsets = t.base_template().offsets();
       const StageQuery& sq = stage_query[zone_id * 8 + static_cast<std::size_t>(staged ? parity_of_cell(cell) : 0)];
-      const std::int32_t* order = sq.variant >= 0 ? sq.order.data() : nullptr;
+      const std::int32_t* order = sq.variant ? sq.order.data() : nullptr;
       // Data event: informed template nodes in query order, up to the cap on conditioning nodes.
       int m = 0;
       for (std::size_t i = 0; i < offsets.size() && m < cap; ++i) {
@@ -244,7 +261,7 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       }
       const double* prior = priors.data() + zone_id * Ks;
       const EventAnswer ans =
-          sq.variant >= 0 ? t.query_variant(sq.variant, w.index.data(), w.value.data(), m, opt.min_replicates, true, w.scratch)
+          sq.variant ? t.query_variant(*sq.variant, w.index.data(), w.value.data(), m, opt.min_replicates, true, w.scratch)
                           : t.query(level, w.index.data(), w.value.data(), m, opt.min_replicates, true, w.scratch);
       w.informed += m;
       w.kept += ans.kept;
