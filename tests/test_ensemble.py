@@ -152,7 +152,7 @@ def test_dask_resumes_what_a_local_run_left(tmp_path):
     prep = prepare(study)
     run_study(study, tmp_path / "full", processes=1, progress=False, prepared=prep)
     run_study(study, tmp_path / "part", processes=1, progress=False, prepared=prep)
-    store = RealizationStore.open(tmp_path / "part" / "realizations.zarr")
+    store = RealizationStore.open(tmp_path / "part" / "realizations.zarr", mode="r+")
     store._group["done"][1] = 0  # as if realization 1 had been interrupted
     store._group["done"][3] = 0
     with (
@@ -236,7 +236,7 @@ def test_run_ensemble_computes_only_missing(tmp_path):
     study = load_study(p)
     prep = prepare(study)
     run_study(study, tmp_path / "run", processes=1, progress=False, prepared=prep)
-    store = RealizationStore.open(tmp_path / "run" / "realizations.zarr")
+    store = RealizationStore.open(tmp_path / "run" / "realizations.zarr", mode="r+")
     before = store.read("facies", 4).copy()
     store._group["done"][4] = 0
     store._group["facies"][4] = np.full((4, 16, 16), -1, dtype=np.int16)  # half-written garbage

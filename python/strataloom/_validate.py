@@ -2,13 +2,15 @@
 
 from __future__ import annotations
 
+import math
 import numbers
+import os
 from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
 
-from .errors import ParameterError, ParameterTypeError
+from .errors import MemoryLimitError, ParameterError, ParameterTypeError
 
 
 def _owner(owner: str | None) -> str:
@@ -99,7 +101,11 @@ def shape3(value: Any, name: str = "shape", *, owner: str | None = None) -> tupl
 
 def as_volume(array: Any, name: str, *, owner: str | None = None) -> np.ndarray:
     """A 2-D (ny, nx) or 3-D (nz, ny, nx) array viewed as 3-D, without copying when possible."""
-    a = np.asarray(array)
+    try:
+        a = np.asarray(array)
+    except (ValueError, TypeError) as e:  # ragged nested lists
+        raise fail(name, "a 2-D (ny, nx) or 3-D (nz, ny, nx) array", f"an object numpy cannot "
+                   f"turn into one array ({e})", owner) from e
     if a.ndim == 2:
         a = a[np.newaxis]
     if a.ndim != 3:
@@ -107,6 +113,30 @@ def as_volume(array: Any, name: str, *, owner: str | None = None) -> np.ndarray:
     if a.size == 0:
         raise fail(name, "a non-empty array", f"an array of shape {a.shape}", owner)
     return a
+
+
+def physical_memory() -> int:
+    """Bytes of physical memory of this machine (0 when the system does not say)."""
+    try:
+        return int(os.sysconf("SC_PAGE_SIZE")) * int(os.sysconf("SC_PHYS_PAGES"))
+    except (AttributeError, OSError, ValueError):
+        return 0
+
+
+def grid_memory(shape: tuple[int, int, int], bytes_per_cell: int, name: str = "shape", *,
+                owner: str | None = None) -> int:
+    """The bytes a grid of ``shape`` needs at ``bytes_per_cell``; MemoryLimitError when this is more
+    than the machine's physical memory (checked before anything is allocated)."""
+    cells = math.prod(int(s) for s in shape)
+    need = cells * int(bytes_per_cell)
+    have = physical_memory()
+    if have and need > have:
+        raise MemoryLimitError(
+            f"The parameter '{name}'{_owner(owner)} gives a grid of {cells:,} cells that needs about "
+            f"{need / 2**30:.1f} GiB, more than the {have / 2**30:.1f} GiB of memory of this machine; "
+            "simulate a smaller grid or split the model into parts."
+        )
+    return need
 
 
 def callback(value: Any, name: str, *, owner: str | None = None) -> Any:

@@ -9,6 +9,28 @@ from pathlib import Path
 from .cli import command
 
 
+def _positive_mib(text: str) -> float:
+    """``--memory-mb``: a positive, finite number of MiB (argparse reports the refusal in MiB)."""
+    try:
+        value = float(text)
+    except ValueError:
+        value = float("nan")
+    if not (value > 0 and value < float("inf")):
+        raise argparse.ArgumentTypeError(f"must be a positive number of MiB, such as 256; got {text!r}")
+    return value
+
+
+def _process_count(text: str) -> int:
+    """``--processes``: a whole number >= 0 (0 = all cores)."""
+    try:
+        value = int(text)
+    except ValueError:
+        value = -1
+    if not 0 <= value <= 1024:
+        raise argparse.ArgumentTypeError(f"must be a whole number in [0, 1024] (0 = all cores); got {text!r}")
+    return value
+
+
 def _connectivity_option(p: argparse.ArgumentParser) -> None:
     """The ``--connectivity`` option shared by the subcommands that label facies bodies."""
     p.add_argument(
@@ -24,7 +46,7 @@ def _connectivity_option(p: argparse.ArgumentParser) -> None:
 def _memory_option(p: argparse.ArgumentParser, what: str) -> None:
     """The ``--memory-mb`` option of the subcommands that may summarise a run."""
     p.add_argument(
-        "--memory-mb", type=float, default=256.0, help=f"memory for {what}, MiB (default 256)"
+        "--memory-mb", type=_positive_mib, default=256.0, help=f"memory for {what}, MiB (default 256)"
     )
 
 
@@ -68,14 +90,20 @@ def _ti_arguments(parser: argparse.ArgumentParser) -> None:
 def _read_ti(path: str) -> tuple[object, tuple[float, float, float] | None]:
     import numpy as np
 
+    from . import _validate as v
     from .training import read_vti
 
+    if not (path.endswith((".vti", ".npy")) and Path(path).is_file()):
+        raise v.fail("TI", "an existing .npy or .vti file (check the path)", path)
     if path.endswith(".vti"):
         arrays, spacing, _ = read_vti(path)
         if "facies" not in arrays:
             raise ValueError(f"{path} has no 'facies' cell array (it has {', '.join(arrays)})")
         return arrays["facies"], spacing  # type: ignore[return-value]
-    return np.load(path, allow_pickle=False), None
+    try:
+        return np.load(path, allow_pickle=False), None
+    except (OSError, ValueError) as e:  # not an .npy file, or one holding objects
+        raise v.fail("TI", "a readable .npy array of category codes (no pickles)", path) from e
 
 
 def _read_wells(path: str) -> list:
@@ -281,7 +309,7 @@ def _check_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("study", metavar="STUDY", help="the study file (.toml)")
     p.add_argument(
         "--processes",
-        type=int,
+        type=_process_count,
         default=None,
         metavar="N",
         help="processes the time estimate assumes (default: the study's, else all cores)",
@@ -320,7 +348,7 @@ def _run_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--processes",
-        type=int,
+        type=_process_count,
         default=None,
         metavar="N",
         help="local worker processes (default: the study's, else all cores)",
@@ -386,7 +414,7 @@ def _demo_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--processes",
-        type=int,
+        type=_process_count,
         default=None,
         metavar="N",
         help="local worker processes (default: all cores)",

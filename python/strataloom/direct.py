@@ -272,7 +272,16 @@ class DirectSampler:
         kinds = params["kinds"] or {}
         variables = [_variable(n, a, kinds.get(n)) for n, a in zip(names, arrays, strict=True)]
         shape = arrays[0].shape
-        tpl = Template.ellipsoid(_radius(params["search_radius"], shape))
+        radius = _radius(params["search_radius"], shape)
+        try:
+            tpl = Template.ellipsoid(radius)
+        except v.ParameterError as e:  # the window is ours, made from search_radius
+            raise v.fail(
+                "search_radius",
+                "a search window of at most 20000 cells; use a smaller radius",
+                radius,
+                _OWNER,
+            ) from e
         ti = _core.DirectTrainingImage(
             shape,
             [x.normalised for x in variables],
@@ -346,6 +355,8 @@ class DirectSampler:
         variables, params, tpl, ti = self._prepare()
         names = [x.name for x in variables]
         grid_shape = v.shape3(shape, "shape", owner=f"{_OWNER}.simulate")
+        # per cell: one float32 per variable, the source index, path and done flag
+        v.grid_memory(grid_shape, 4 * len(variables) + 24, owner=f"{_OWNER}.simulate")
         flat = len(tuple(shape)) == 2
         aux_names = params["auxiliary"]
         owner = f"{_OWNER}.simulate"
@@ -452,8 +463,8 @@ def _split_variables(training_image: Any) -> tuple[list[str], list[np.ndarray]]:
 def _variable(name: str, array: np.ndarray, kind: str | None) -> _Variable:
     label = "training_image" if name == "value" else f"training_image[{name!r}]"
     dt = array.dtype
-    if not (np.issubdtype(dt, np.number) or dt == np.bool_):
-        raise v.fail_type(label, "a numeric array", array, _OWNER)
+    if not (np.issubdtype(dt, np.number) or dt == np.bool_) or np.issubdtype(dt, np.complexfloating):
+        raise v.fail_type(label, "a real numeric array", array, _OWNER)
     if kind is None:
         kind = "continuous" if np.issubdtype(dt, np.floating) else "categorical"
     x = np.asarray(array, dtype=np.float64).ravel()

@@ -86,14 +86,22 @@ def _simulate(adapter: Any, index: int, seed: int, queue: Any) -> dict[str, np.n
     return {k: np.ascontiguousarray(a) for k, a in out.items()}
 
 
+_INIT_ERROR: list[BaseException] = []
+
+
 def _worker_init(factory: Any, queue: Any) -> None:
     global _PROGRESS_QUEUE
     _PROGRESS_QUEUE = queue
-    _adapter(factory)  # build the engine once, before the first task
+    try:
+        _adapter(factory)  # build the engine once, before the first task
+    except Exception as e:  # kept for the first task: a failing initializer breaks the whole pool
+        _INIT_ERROR.append(e)
 
 
 def _worker_task(index: int, seed: int) -> tuple[int, dict[str, np.ndarray]]:
     # the engine was built by _worker_init; tasks carry only (index, seed), not the inputs
+    if _INIT_ERROR:
+        raise _INIT_ERROR[0]
     (adapter,) = _ADAPTERS.values()
     return index, _simulate(adapter, index, seed, _PROGRESS_QUEUE)
 

@@ -163,19 +163,31 @@ class Run:
         return self._group[variable]
 
     # ------------------------------------------------------------------ data
+    def _read(self, variable: str, index: int, key: Any) -> np.ndarray:
+        """``array(variable)[key]``, with a damaged chunk reported as a StudyError."""
+        try:
+            return np.asarray(self.array(variable)[key])
+        except (StudyError, v.ParameterError):
+            raise
+        except Exception as exc:  # the codec or zarr failed on the bytes of a chunk
+            raise StudyError(
+                f"Realization {index} of '{variable}' in '{self.path / STORE_NAME}' cannot be read "
+                f"(a damaged chunk: {type(exc).__name__}); run the study into this folder again "
+                "(strataloom run STUDY --out DIR): the resume recomputes damaged realizations."
+            ) from exc
+
     def realization(self, index: int, variable: str) -> np.ndarray:
         """One realization ``(nz, ny, nx)`` of a variable, as stored (int16 or float32)."""
         i = v.integer(index, "index", low=0, high=self.size - 1, owner="Run.realization")
-        return np.asarray(self.array(variable)[i])
+        return self._read(variable, i, i)
 
     def iter_realizations(
         self, variable: str, indices: Any = None
     ) -> Iterator[tuple[int, np.ndarray]]:
         """Yield ``(index, array)`` for each finished realization, one at a time."""
         idx = self.completed if indices is None else np.asarray(indices, dtype=np.int64)
-        arr = self.array(variable)
         for i in idx:
-            yield int(i), np.asarray(arr[int(i)])
+            yield int(i), self._read(variable, int(i), int(i))
 
     def slab(
         self, variable: str, z: slice, y: slice = slice(None), indices: Any = None
@@ -188,7 +200,7 @@ class Run:
         y0, y1, _ = y.indices(ny)
         out = np.empty((idx.size, z1 - z0, y1 - y0, nx), dtype=arr.dtype)
         for k, i in enumerate(idx):
-            out[k] = arr[int(i), z0:z1, y0:y1, :]
+            out[k] = self._read(variable, int(i), (int(i), slice(z0, z1), slice(y0, y1), slice(None)))
         return out
 
     def chunk_depth(self, variable: str) -> int:

@@ -17,6 +17,7 @@ uninterrupted run's byte for byte.
 from __future__ import annotations
 
 import json
+import os
 import re
 import shutil
 import warnings
@@ -69,14 +70,17 @@ class RealizationStore:
 
         p = Path(path)
         attrs = json.loads(json.dumps(dict(attrs)))  # plain JSON, a stable copy
+        for left in p.parent.glob(f"{p.name}.tmp-*"):  # a creation killed before its rename
+            shutil.rmtree(left, ignore_errors=True)
         if p.exists():
             try:
-                old = cls.open(p)
+                old = cls.open(p, mode="r+")
                 same = old.attrs == attrs
             except StudyError:
                 same = False
             if same:
                 old.clean_partial_writes()
+                old.recheck_done()
                 return old
             if not overwrite:
                 raise StudyError(
@@ -87,7 +91,10 @@ class RealizationStore:
             shutil.rmtree(p)
         shape = tuple(int(s) for s in attrs["grid"]["shape"])
         n = len(attrs["seeds"])
-        group = zarr.open_group(str(p), mode="w", zarr_format=3)
+        # built under a temporary name and renamed when complete, so a store that exists is whole
+        tmp = p.with_name(f"{p.name}.tmp-{os.getpid()}")
+        shutil.rmtree(tmp, ignore_errors=True)
+        group = zarr.open_group(str(tmp), mode="w", zarr_format=3)
         for name, spec in attrs["variables"].items():
             if spec["kind"] == "categorical":
                 dtype, fill = np.int16, -1
@@ -114,12 +121,13 @@ class RealizationStore:
         # zarr-python warns that v3 has no spec for it yet, which is known and harmless here
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", category=UserWarning)
-            zarr.consolidate_metadata(str(p))
+            zarr.consolidate_metadata(str(tmp))
+        os.replace(tmp, p)
         return cls(zarr.open_group(str(p), mode="r+", zarr_format=3), p)
 
     @classmethod
-    def open(cls, path: str | Path, mode: str = "r+") -> RealizationStore:
-        """Open an existing store."""
+    def open(cls, path: str | Path, mode: str = "r") -> RealizationStore:
+        """Open an existing store, read-only unless ``mode="r+"``."""
         import zarr
 
         p = Path(path)
@@ -141,6 +149,32 @@ class RealizationStore:
                 f.unlink(missing_ok=True)
                 n += 1
         return n
+
+    def recheck_done(self) -> list[int]:
+        """Clear the ``done`` flag of finished realizations whose chunks no longer read back whole
+        (a damaged or deleted chunk file), so that a resume computes them again; returns them."""
+        try:
+            flags = self.done()
+        except Exception:  # the flags themselves are damaged: every realization is redone
+            self._group["done"][:] = np.zeros(self.size, dtype=np.uint8)
+            return list(range(self.size))
+        bad = []
+        specs = self.attrs["variables"]
+        for i in np.flatnonzero(flags):
+            for name, spec in specs.items():
+                try:
+                    a = np.asarray(self._group[name][int(i)])
+                except Exception:
+                    bad.append(int(i))
+                    break
+                # every cell of a finished realization is simulated, so fill values mean a lost chunk
+                lost = (a == -1) if spec["kind"] == "categorical" else np.isnan(a)
+                if lost.all(axis=(1, 2)).any():
+                    bad.append(int(i))
+                    break
+        for i in bad:
+            self._group["done"][i] = 0
+        return bad
 
     # -- contents ------------------------------------------------------------------------------
     @property

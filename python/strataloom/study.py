@@ -519,6 +519,8 @@ def load_study(path: str | Path) -> Study:
         On a missing file, a TOML syntax error, an unknown key, a missing key or a wrong type; the
         message names the key and line.
     """
+    if not isinstance(path, str | Path):
+        raise StudyError(f"The study path must be a path to a .toml file; got {type(path).__name__}.")
     p = Path(path)
     try:
         raw_bytes = p.read_bytes()
@@ -659,6 +661,9 @@ def _variables(r: _Reader, raw: Any) -> dict[str, Variable]:
                 colour = r.string(c["colour"], (*ck, "colour"))
                 if not _COLOUR.match(colour):
                     raise r.error((*ck, "colour"), f"must be a colour '#rrggbb'; got {colour!r}.")
+                if any(c.name == cname for c in cats):
+                    raise r.error((*ck, "name"), f"repeats the category name {cname!r}; give each "
+                                  "category its own name.")
                 cats.append(Category(code, cname, colour))
             codes = sorted(c.code for c in cats)
             if codes != list(range(len(cats))):

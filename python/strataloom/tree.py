@@ -325,6 +325,7 @@ def _run(trees: list[PatternTree], zones: np.ndarray | None, shape: Any, *, hard
          rotation: Any, affinity: Any, progress: Any, owner: str) -> tuple[np.ndarray, dict]:
     """Validate the simulation arguments once and run the core (zones: (nz, ny, nx) indices into trees)."""
     shp = v.shape3(shape, "shape", owner=owner)
+    v.grid_memory(shp, 16, owner=owner)  # codes, output, path and batches: about 16 bytes a cell
     k = trees[0].categories
     hard_arr = None if hard is None else _hard_codes(hard, shp)
     sources = _soft_sources(soft, shp, k)

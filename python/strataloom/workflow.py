@@ -10,6 +10,7 @@ from __future__ import annotations
 import json
 import math
 import os
+import re
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -29,9 +30,9 @@ from .conditioning import (
 )
 from .engines import EngineFactory, engine_class
 from .ensemble import EnsembleResult, realization_seeds, run_ensemble
-from .errors import StudyError
+from .errors import MemoryLimitError, ParameterError, ParameterTypeError, StudyError
 from .store import RealizationStore, realization_attrs
-from .study import Study, read_array
+from .study import Study, _Reader, read_array
 
 __all__ = ["Prepared", "check_study", "prepare", "read_attribute", "run_study"]
 
@@ -69,6 +70,40 @@ class Prepared:
             self.soft,
             threads,
         )
+
+
+#: Errors an engine raises about its inputs; during a study run they are reported against the study.
+ENGINE_ERRORS = (ParameterError, ParameterTypeError, MemoryLimitError)
+
+
+def _study_key(study: Study, message: str) -> tuple:
+    """The study key behind the engine parameter a message names."""
+    m = re.search(r"parameter '([A-Za-z_]+)", message) or re.search(r"\b(memory_limit)\b", message)
+    name = m.group(1) if m else ""
+    params = study.engine.parameters
+    if name in params:
+        return ("engine", "parameters", name)
+    if name in ("radius", "max_nodes", "offsets") and "template" in params:
+        return ("engine", "parameters", "template")
+    return {
+        "soft": ("soft_data",),
+        "tau": ("soft_data",),
+        "hard": ("wells",),
+        "training_image": ("training_image",),
+        "shape": ("grid", "shape"),
+    }.get(name, ("engine",))
+
+
+def engine_error(study: Study, exc: BaseException) -> StudyError:
+    """An engine's refusal of a study's input, as a StudyError naming the study key and line."""
+    message = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    key = _study_key(study, message)
+    try:
+        text = study.path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError):
+        text = ""
+    r = _Reader(study.path, text, {})
+    return StudyError(f"{r.where(key)}: '{r.dotted(key)}' is refused by the {study.engine.name} engine: {message}")
 
 
 def read_training_image(study: Study) -> np.ndarray:
@@ -203,6 +238,20 @@ def prepare(study: Study, *, calibrate_soft: bool = True) -> Prepared:
                 raise StudyError(
                     f"The soft data '{sd.probabilities.name}' has shape {p.shape}; "
                     f"expected (K, nz, ny, nx) = {(k, *study.grid.shape)}."
+                )
+            informed = ~np.isnan(p).any(axis=0)
+            q = p[:, informed]
+            if q.size and (not np.isfinite(q).all() or q.min() < 0 or q.max() > 1):
+                raise StudyError(
+                    f"The soft data '{sd.probabilities.name}' must hold probabilities in [0, 1] "
+                    f"(NaN where a cell has none); it holds values in [{q.min():g}, {q.max():g}]."
+                )
+            sums = q.sum(axis=0)
+            if sums.size and np.abs(sums - 1).max() > 1e-3:
+                raise StudyError(
+                    f"The soft data '{sd.probabilities.name}' must sum to 1 over the {k} "
+                    f"categories of each informed cell; sums run from {sums.min():g} to "
+                    f"{sums.max():g}. Normalise them or set NaN where a cell has none."
                 )
             prepared.soft = p.astype(np.float32)
         elif calibrate_soft:
@@ -347,15 +396,18 @@ def run_study(
     if client is None and scheduler is None:
         threads = max(1, (os.cpu_count() or 1) // max(1, min(local_p, n)))
     factory = prep.factory(threads=threads)
-    result = run_ensemble(
-        factory,
-        store,
-        seeds,
-        processes=processes,
-        client=client,
-        scheduler=scheduler,
-        progress=progress,
-    )
+    try:
+        result = run_ensemble(
+            factory,
+            store,
+            seeds,
+            processes=processes,
+            client=client,
+            scheduler=scheduler,
+            progress=progress,
+        )
+    except ENGINE_ERRORS as e:
+        raise engine_error(study, e) from e
     summary = RunSummary(out_dir, store.path, result, prep)
     finished = bool(store.done().all())
     if finished and (study.output.summary or study.output.report):
@@ -442,7 +494,10 @@ def check_study(
     )
     timing = None
     if probe:
-        timing = _probe(prep, per_proc)
+        try:
+            timing = _probe(prep, per_proc)
+        except ENGINE_ERRORS as e:
+            raise engine_error(study, e) from e
         if timing is not None:
             per_proc += timing[1]
     lines.append(
