@@ -20,7 +20,7 @@ from typing import Any
 import numpy as np
 
 from .qc import QCResult, _nan_band, check_run
-from .runread import REPORT_NAME, SUMMARY_NAME, Run
+from .runread import REPORT_NAME, SUMMARY_NAME, Run, temporary_path
 
 __all__ = ["CAUTIONS", "build_report"]
 
@@ -665,7 +665,7 @@ def build_report(
         + "".join(doc.parts)
         + "</main></body></html>"
     )
-    tmp = out.with_name(out.name + f".tmp-{os.getpid()}")
+    tmp = temporary_path(out)
     tmp.write_text(page, encoding="utf-8")
     os.replace(tmp, out)
     return out

@@ -7,6 +7,8 @@ for every finished realization, and :func:`open_run` gives a lazy :class:`xarray
 from __future__ import annotations
 
 import json
+import os
+import shutil
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
@@ -23,6 +25,33 @@ STORE_NAME = "realizations.zarr"
 SUMMARY_NAME = "summary.zarr"
 REPORT_NAME = "report.html"
 FORMAT_VERSION = 1
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except OSError:  # exists, owned by someone else
+        return True
+    return True
+
+
+def temporary_path(out: Path) -> Path:
+    """The sibling ``OUT.tmp-<pid>`` to write before renaming it onto ``out`` (atomic replacement).
+
+    Leftovers of writers killed before their rename (their process no longer runs) are deleted
+    first, so an interrupted summary, report or store leaves nothing behind once rewritten.
+    """
+    out = Path(out)
+    for left in out.parent.glob(f"{out.name}.tmp-*"):
+        pid = left.name.rsplit("-", 1)[-1]
+        if pid.isdigit() and int(pid) != os.getpid() and not _alive(int(pid)):
+            if left.is_dir():
+                shutil.rmtree(left, ignore_errors=True)
+            else:
+                left.unlink(missing_ok=True)
+    return out.with_name(f"{out.name}.tmp-{os.getpid()}")
 
 
 class Run:

@@ -28,6 +28,7 @@ from typing import Any
 import numpy as np
 
 from .errors import StudyError
+from .runread import temporary_path
 
 __all__ = ["FORMAT_VERSION", "RealizationStore"]
 
@@ -70,8 +71,6 @@ class RealizationStore:
 
         p = Path(path)
         attrs = json.loads(json.dumps(dict(attrs)))  # plain JSON, a stable copy
-        for left in p.parent.glob(f"{p.name}.tmp-*"):  # a creation killed before its rename
-            shutil.rmtree(left, ignore_errors=True)
         if p.exists():
             try:
                 old = cls.open(p, mode="r+")
@@ -92,7 +91,7 @@ class RealizationStore:
         shape = tuple(int(s) for s in attrs["grid"]["shape"])
         n = len(attrs["seeds"])
         # built under a temporary name and renamed when complete, so a store that exists is whole
-        tmp = p.with_name(f"{p.name}.tmp-{os.getpid()}")
+        tmp = temporary_path(p)  # also deletes what a creation killed before its rename left
         shutil.rmtree(tmp, ignore_errors=True)
         group = zarr.open_group(str(tmp), mode="w", zarr_format=3)
         for name, spec in attrs["variables"].items():

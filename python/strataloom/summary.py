@@ -41,7 +41,7 @@ import numpy as np
 from . import _validate as v
 from .connectivity import body_sizes, label_bodies, well_bodies, wells_from_hard_data
 from .errors import MemoryLimitError
-from .runread import SUMMARY_NAME, Run, cell_centres
+from .runread import SUMMARY_NAME, Run, cell_centres, temporary_path
 
 __all__ = [
     "CategoricalSummary",
@@ -381,7 +381,7 @@ def summarize(
     structure(connectivity)  # validates
 
     out = Path(output) if output is not None else r.path / SUMMARY_NAME
-    tmp = out.with_name(out.name + f".tmp-{os.getpid()}")
+    tmp = temporary_path(out)
     if tmp.exists():
         shutil.rmtree(tmp)
     group = zarr.open_group(tmp, mode="w", zarr_format=3)

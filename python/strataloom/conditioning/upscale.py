@@ -7,6 +7,7 @@ grid are counted per well, and cells whose samples disagree are listed as confli
 
 from __future__ import annotations
 
+import zipfile
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -124,7 +125,13 @@ class HardData:
                 arrays[f"values_{var}"] = vals.astype(np.float32)
         arrays["wells"] = self.wells.astype(str)
         tmp = Path(str(path) + ".tmp.npz")
-        np.savez(tmp, **arrays)
+        # np.savez stamps each member with the current time; a fixed stamp keeps the file a pure
+        # function of the data, so resumed and repeated runs write the same bytes
+        with zipfile.ZipFile(tmp, "w", zipfile.ZIP_STORED) as z:
+            for name, a in arrays.items():
+                info = zipfile.ZipInfo(f"{name}.npy", date_time=(1980, 1, 1, 0, 0, 0))
+                with z.open(info, "w", force_zip64=True) as f:
+                    np.lib.format.write_array(f, np.asanyarray(a), allow_pickle=False)
         tmp.replace(path)
 
 
