@@ -181,6 +181,13 @@ def _soft(d: Path, p: Path, name: str, array: np.ndarray) -> None:
     np.save(d / "x.npy", array)
 
 
+def _direct_study(p: Path, parameter: str) -> None:
+    text = p.read_text()
+    head, _, tail = text.partition("[engine]")
+    _, _, rest = tail.partition("[ensemble]")
+    p.write_text(f'{head}[engine]\nname = "direct_sampler"\n\n[engine.parameters]\n{parameter}\n\n[ensemble]{rest}')
+
+
 def _csv(d: Path, text: str) -> None:
     (d / "wells" / "points.csv").write_text(text)
 
@@ -309,6 +316,10 @@ ENGINE_CASES = [
     ("engine-memory-limit-too-small",
      lambda d, p: _edit(p, "min_replicates = 2", "min_replicates = 2\nmemory_limit = 100"),
      r"line \d+: 'engine.parameters.memory_limit' is refused .* raise memory_limit"),
+    ("engine-direct-accept-distance", lambda d, p: _direct_study(p, "accept_distance = 2.0"),
+     r"line \d+: 'engine.parameters.accept_distance' is refused by the direct_sampler engine: .*\[0, 1\]"),
+    ("engine-direct-neighbors-zero", lambda d, p: _direct_study(p, "neighbors = 0"),
+     r"line \d+: 'engine.parameters.neighbors' is refused by the direct_sampler engine"),
     ("engine-ti-smaller-than-template", lambda d, p: np.save(d / "ti.npy", np.array([[[0, 1]]], np.int16)),
      r"'engine.parameters.template' is refused .* larger training image"),
 ]
@@ -333,6 +344,29 @@ def test_engine_refusals_name_the_study_key(tmp_path, capsys, setup, pattern):
         err = _cli(capsys, ["run", str(p), "--out", str(tmp_path / f"run{processes}"),
                             "--processes", processes, "--no-progress"])
         assert re.search(pattern, err), err
+
+
+# memory estimates over the limit, with the machine's memory set small for the test:
+# (id, bytes of memory the machine is said to have, command, pattern)
+MEMORY_CASES = [
+    ("memory-per-process-over-machine", 10_000, ["check", "--no-probe"],
+     r"line \d+: 'grid.shape' needs about 3\d.\d KiB per process, more than the 9.8 KiB .* coarser grid"),
+    ("memory-processes-over-machine", 40_000, ["run", "--processes", "2", "--no-progress", "--out", "RUN"],
+     r"'ensemble.processes' asks for 2 processes .* use at most 1 processes \(--processes 1\)"),
+]
+
+
+@pytest.mark.parametrize(("memory", "argv", "pattern"), [c[1:] for c in MEMORY_CASES],
+                         ids=[c[0] for c in MEMORY_CASES])
+def test_memory_estimate_over_the_limit(tmp_path, capsys, monkeypatch, memory, argv, pattern):
+    from strataloom import _validate
+
+    monkeypatch.setattr(_validate, "physical_memory", lambda: memory)
+    p = write_small_study(tmp_path)
+    argv = [str(tmp_path / "run") if a == "RUN" else a for a in argv]
+    err = _cli(capsys, [argv[0], str(p), *argv[1:]])
+    assert re.search(pattern, err), err
+    assert not (tmp_path / "run").exists()  # refused before anything was written
 
 
 def test_conflicting_samples_in_one_cell_are_listed(tmp_path, capsys):
@@ -430,7 +464,7 @@ def test_debug_shows_the_traceback(tmp_path, capsys):
 
 
 def test_catalogue_is_documented_and_counted():
-    ids = [c[0] for c in API_CASES + STUDY_CASES + ENGINE_CASES + CLI_CASES]
+    ids = [c[0] for c in API_CASES + STUDY_CASES + ENGINE_CASES + MEMORY_CASES + CLI_CASES]
     assert len(ids) == len(set(ids)), "case ids repeat"
     doc = (Path(__file__).parents[1] / "docs" / "bad-inputs.md").read_text()
     missing = [i for i in ids if f"`{i}`" not in doc]

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import random
+import re
 import signal
 import subprocess
 import sys
@@ -172,3 +173,30 @@ def test_store_creation_killed_before_its_rename_leaves_no_store(tmp_path):
     (out / "realizations.zarr.tmp-99999999" / "facies").mkdir(parents=True)
     run_study(load_study(p), out, processes=1, progress=False)
     assert sorted(q.name for q in out.iterdir() if q.name.startswith("realizations")) == ["realizations.zarr"]
+
+
+def test_check_reports_the_data_files_resolved(tmp_path, capsys):
+    from strataloom.cli import main
+
+    p = write_small_study(tmp_path / "s")
+    (tmp_path / "data").mkdir()
+    (tmp_path / "s" / "ti.npy").rename(tmp_path / "data" / "ti.npy")
+    p.write_text(p.read_text().replace('file = "ti.npy"', 'file = "../data/./ti.npy"'))
+    assert main(["check", "--no-probe", str(p)]) == 0
+    (line,) = [x for x in capsys.readouterr().out.splitlines() if x.startswith("data files: ")]
+    assert str((tmp_path / "data" / "ti.npy").resolve()) in line.split(", ")[0]
+    assert ".." not in line and "/./" not in line
+
+
+def test_the_package_loads_no_pickles_and_runs_no_code():
+    # a study names data files only: nothing in the package may unpickle, evaluate or shell out
+    import strataloom
+
+    calls = re.compile(r"np\.load\((?:[^()]|\([^()]*\))*\)")
+    for f in Path(strataloom.__file__).parent.rglob("*.py"):
+        text = f.read_text()
+        for bad in ("pickle.load", "eval(", "exec(", "shell=True", "os.system(", "allow_pickle=True",
+                    "yaml.load(", "__import__("):
+            assert bad not in text, f"{f.name} uses {bad}"
+        for call in calls.findall(text):
+            assert "allow_pickle=False" in call, f"{f.name}: {call}"

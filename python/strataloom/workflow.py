@@ -18,6 +18,7 @@ from typing import Any
 
 import numpy as np
 
+from . import _validate as v
 from .conditioning import (
     Calibration,
     HardData,
@@ -94,16 +95,46 @@ def _study_key(study: Study, message: str) -> tuple:
     }.get(name, ("engine",))
 
 
-def engine_error(study: Study, exc: BaseException) -> StudyError:
-    """An engine's refusal of a study's input, as a StudyError naming the study key and line."""
-    message = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-    key = _study_key(study, message)
+def _study_error(study: Study, key: tuple, message: str) -> StudyError:
+    """A StudyError naming ``key`` and its line in the study file (the file is read again)."""
     try:
         text = study.path.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError):
         text = ""
     r = _Reader(study.path, text, {})
-    return StudyError(f"{r.where(key)}: '{r.dotted(key)}' is refused by the {study.engine.name} engine: {message}")
+    return r.error(key, message)
+
+
+def engine_error(study: Study, exc: BaseException) -> StudyError:
+    """An engine's refusal of a study's input, as a StudyError naming the study key and line."""
+    message = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    return _study_error(study, _study_key(study, message), f"is refused by the {study.engine.name} engine: {message}")
+
+
+def _process_bytes(prep: Prepared) -> int:
+    """Estimated memory of one worker process: the TI, the grid's working arrays, soft data."""
+    soft = 0 if prep.soft is None else prep.soft.nbytes
+    return int(prep.training_image.nbytes) + prep.study.grid.size * (8 + 4) + int(soft)
+
+
+def check_memory(study: Study, per_process: int, processes: int) -> None:
+    """StudyError when ``processes`` workers of ``per_process`` bytes exceed this machine's memory."""
+    have = v.physical_memory()
+    if not have or per_process * processes <= have:
+        return
+    if per_process > have:
+        raise _study_error(
+            study, ("grid", "shape"),
+            f"needs about {_size(per_process)} per process, more than the {_size(have)} of memory of "
+            "this machine; use a coarser grid or split the model into parts.",
+        )
+    most = max(1, have // per_process)
+    raise _study_error(
+        study, ("ensemble", "processes"),
+        f"asks for {processes} processes of about {_size(per_process)} each, "
+        f"{_size(per_process * processes)} in all, more than the {_size(have)} of memory of this "
+        f"machine; use at most {most} processes (--processes {most}).",
+    )
 
 
 def read_training_image(study: Study) -> np.ndarray:
@@ -365,9 +396,12 @@ def run_study(
     prep = prepared if prepared is not None else prepare(study)
     if engine_class(study.engine.name) is None:
         prep.factory()()  # the clear "engine not in this build" error, before any file is written
+    n = study.ensemble.realizations
+    if client is None and scheduler is None:
+        p = processes if processes is not None else study.ensemble.processes
+        check_memory(study, _process_bytes(prep), max(1, min(p or os.cpu_count() or 1, n)))
     out_dir = Path(out)
     out_dir.mkdir(parents=True, exist_ok=True)
-    n = study.ensemble.realizations
     seeds = realization_seeds(study.ensemble.seed, n)
     store = RealizationStore.create(
         out_dir / "realizations.zarr", attrs=_store_attrs(prep, seeds), overwrite=overwrite
@@ -475,6 +509,7 @@ def check_study(
             f"training image {study.relative(study.training_image.source)}: shape "
             f"{ti.shape}, mean {np.nanmean(ti):.4g}"
         )
+    lines.append("data files: " + ", ".join(str(f.resolve()) for f in study.input_files()))
     dev = sum(w.deviated for w in prep.wells)
     lines.append(f"wells: {len(prep.wells)} ({dev} deviated)")
     lines.extend("  " + s for s in prep.hard.report.lines())
@@ -487,11 +522,12 @@ def check_study(
     p = max(1, min(p, n))
     itemsize = 2 if study.variables[study.engine.variable].kind == "categorical" else 4
     store_bytes = n * g.size * itemsize
-    per_proc = ti.nbytes + g.size * (8 + 4) + (0 if prep.soft is None else prep.soft.nbytes)
+    per_proc = _process_bytes(prep)
     lines.append(
         f"engine {study.engine.name}, {n} realizations, master seed "
         f"{study.ensemble.seed}, {p} processes"
     )
+    check_memory(study, per_proc, p)
     timing = None
     if probe:
         try:
