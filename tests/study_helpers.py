@@ -121,12 +121,25 @@ class FailingFactory:
 
 
 class _FailingAdapter:
-    def __init__(self, adapter, bad_seed):
+    def __init__(self, adapter, bad_seed, die=False):
         self.adapter = adapter
         self.bad_seed = bad_seed
+        self.die = die
         self.variables = adapter.variables
 
     def simulate(self, seed):
         if seed == self.bad_seed:
+            if self.die:  # as if the operating system had killed the worker (out of memory)
+                import os
+                import signal
+
+                os.kill(os.getpid(), signal.SIGKILL)
             raise RuntimeError(f"engine failure for seed {seed}")
         return self.adapter.simulate(seed)
+
+
+class DyingFactory(FailingFactory):
+    """Its engine's worker process is killed outright for one seed (a test double)."""
+
+    def __call__(self):
+        return _FailingAdapter(self.inner(), self.bad_seed, die=True)

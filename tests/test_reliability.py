@@ -200,3 +200,21 @@ def test_the_package_loads_no_pickles_and_runs_no_code():
             assert bad not in text, f"{f.name} uses {bad}"
         for call in calls.findall(text):
             assert "allow_pickle=False" in call, f"{f.name}: {call}"
+
+
+def test_a_worker_killed_by_the_system_gives_one_clear_error_and_resumes(tmp_path):
+    from strataloom.ensemble import realization_seeds, run_ensemble
+    from strataloom.errors import StudyError
+    from strataloom.workflow import _store_attrs
+    from study_helpers import DyingFactory
+
+    p = write_small_study(tmp_path / "s", n=6)
+    prep = prepare(load_study(p))
+    seeds = realization_seeds(42, 6)
+    store = RealizationStore.create(tmp_path / "r.zarr", attrs=_store_attrs(prep, seeds))
+    with pytest.raises(StudyError, match=r"worker process died .* Run the same command again"):
+        run_ensemble(DyingFactory(prep.factory(threads=1), bad_seed=seeds[2]), store, seeds, processes=2,
+                     progress=False)
+    assert not store.done()[2]
+    res = run_ensemble(prep.factory(threads=1), store, seeds, processes=1, progress=False)
+    assert 2 in res.computed and store.done().all()

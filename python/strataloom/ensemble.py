@@ -15,12 +15,14 @@ import os
 import time
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
 from . import _validate as v
+from .errors import StudyError
 from .store import RealizationStore
 
 __all__ = ["EnsembleResult", "realization_seeds", "run_ensemble"]
@@ -305,17 +307,29 @@ def _run_local(
                         nxt = next(it, None)
                         if nxt is not None:
                             pending.add(pool.submit(_worker_task, nxt, int(seeds[nxt])))
+            except BrokenProcessPool as e:
+                _stop(pool)
+                raise StudyError(
+                    "A worker process died while simulating (killed by the system, often for lack "
+                    "of memory); finished realizations are kept. Run the same command again to "
+                    "resume, with fewer --processes if memory is short."
+                ) from e
             except BaseException:
                 # Ctrl-C, a failed write or a failed realization: stop the workers now instead of
                 # letting the pool finish the realizations in flight (they are not marked done)
-                procs = list((getattr(pool, "_processes", None) or {}).values())
-                pool.shutdown(wait=False, cancel_futures=True)
-                for proc in procs:
-                    proc.terminate()
+                _stop(pool)
                 raise
     finally:
         if manager is not None:
             manager.shutdown()
+
+
+def _stop(pool: ProcessPoolExecutor) -> None:
+    """Stop the workers now instead of letting the pool finish the realizations in flight."""
+    procs = list((getattr(pool, "_processes", None) or {}).values())
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in procs:
+        proc.terminate()
 
 
 def _run_dask(
