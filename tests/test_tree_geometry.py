@@ -137,7 +137,7 @@ def test_bad_zones(channel_tree):
     with pytest.raises(ValueError, match="zones"):
         sl.simulate_zones([channel_tree], np.zeros((5, 10), int), (10, 10))
     other = sl.PatternTree(np.arange(36).reshape(6, 6) % 3, sl.Template.box((0, 1, 1)), levels=3)
-    with pytest.raises(ValueError, match="trees"):
+    with pytest.raises(ValueError, match="engines"):
         sl.simulate_zones([channel_tree, other], np.zeros((10, 10), int), (10, 10))
-    with pytest.raises(TypeError, match="trees"):
+    with pytest.raises(TypeError, match="engines"):
         sl.simulate_zones(channel_tree, np.zeros((10, 10), int), (10, 10))
