@@ -10,7 +10,7 @@ import pytest
 from scipy import ndimage
 
 from strataloom.cli import main
-from strataloom.qc import local_azimuth, orientation_gap
+from strataloom.qc import check_run, local_azimuth, orientation_gap
 from strataloom.study import load_study
 from strataloom.workflow import run_study
 from test_tree_geometry import angle_gap, azimuth_of_bands, straight_channels
@@ -103,6 +103,16 @@ def test_study_with_rotation_and_zones_end_to_end(tmp_path, engine):
     html = (tmp_path / "run" / "report.html").read_text()
     assert 'data-figure="orientation"' in html
     assert "Local orientation against the requested rotation" in html
+    # The orientation verdict tells the requested azimuth (30) from a perpendicular one (120):
+    # the structure tensor of the realizations (scipy.ndimage gradients, reference library).
+    ti = np.load(tmp_path / "channels.npy")
+
+    def verdict(az):
+        res = check_run(tmp_path / "run", ti=ti, azimuth=az)
+        return next(x["verdict"] for x in res.verdicts if x["check"].startswith("Local orientation"))
+
+    assert verdict(None) in ("pass", "check")   # measured 9.4 (tree), 15.9 (direct) degrees
+    assert verdict(120.0) == "fail"             # measured 80.6, 74.1 degrees
 
 
 def test_check_lists_geometry_and_zones(tmp_path, capsys):
