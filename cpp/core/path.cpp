@@ -1,7 +1,6 @@
 #include "core/path.hpp"
 
 #include <algorithm>
-#include <deque>
 
 #include "core/error.hpp"
 #include "core/random.hpp"
@@ -54,47 +53,52 @@ std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, con
     bucket[a] = Index{reach[a]} + 1;
     nb[a] = (grid.level_extent(level, a) + bucket[a] - 1) / bucket[a];
   }
-  std::vector<std::int64_t> stamp(static_cast<std::size_t>(nb[0] * nb[1] * nb[2]), -1);
+  // blocked[b] == id: bucket b neighbours a bucket holding a node of batch id. Marking the 27
+  // neighbours of each node taken lets a candidate check only its own bucket.
+  std::vector<std::int64_t> blocked(static_cast<std::size_t>(nb[0] * nb[1] * nb[2]), -1);
   auto bucket_of = [&](Index cell) {
     const Ijk c = grid.cell(cell);
     return Ijk{c[0] / step / bucket[0], c[1] / step / bucket[1], c[2] / step / bucket[2]};
   };
-  auto free_for = [&](const Ijk& b, std::int64_t id) {
+  auto flat = [&](const Ijk& b) { return static_cast<std::size_t>((b[0] * nb[1] + b[1]) * nb[2] + b[2]); };
+  auto block_around = [&](const Ijk& b, std::int64_t id) {
     for (Index z = std::max<Index>(0, b[0] - 1); z <= std::min(nb[0] - 1, b[0] + 1); ++z)
       for (Index y = std::max<Index>(0, b[1] - 1); y <= std::min(nb[1] - 1, b[1] + 1); ++y)
         for (Index x = std::max<Index>(0, b[2] - 1); x <= std::min(nb[2] - 1, b[2] + 1); ++x)
-          if (stamp[static_cast<std::size_t>((z * nb[1] + y) * nb[2] + x)] == id) return false;
-    return true;
+          blocked[static_cast<std::size_t>((z * nb[1] + y) * nb[2] + x)] = id;
   };
+  // The bucket of every path node, computed once (each node may be considered many times).
+  std::vector<std::uint32_t> bucket_index(path.size());
+  for (std::size_t i = 0; i < path.size(); ++i) bucket_index[i] = static_cast<std::uint32_t>(flat(bucket_of(path[i])));
   const std::int64_t window = 4 * max_batch;  // candidates looked at per batch
   std::vector<Index> out;
   out.reserve(path.size());
   std::vector<std::int64_t> starts;
-  std::deque<Index> pending;
+  // Nodes deferred by earlier batches (positions in `path`), in path order; path nodes not yet
+  // looked at start at `next` and are only taken once no deferred node is left.
+  std::vector<std::size_t> pending, deferred;
   std::size_t next = 0;
   std::int64_t id = 0;
   while (next < path.size() || !pending.empty()) {
     starts.push_back(static_cast<std::int64_t>(out.size()));
     std::int64_t taken = 0, seen = 0;
-    std::deque<Index> deferred;
-    auto consider = [&](Index cell) {
-      const Ijk b = bucket_of(cell);
-      if (free_for(b, id)) {
-        stamp[static_cast<std::size_t>((b[0] * nb[1] + b[1]) * nb[2] + b[2])] = id;
-        out.push_back(cell);
+    deferred.clear();
+    auto consider = [&](std::size_t i) {
+      const std::uint32_t b = bucket_index[i];
+      if (blocked[b] != id) {
+        block_around(bucket_of(path[i]), id);
+        out.push_back(path[i]);
         ++taken;
       } else {
-        deferred.push_back(cell);
+        deferred.push_back(i);
       }
       ++seen;
     };
-    while (!pending.empty() && taken < max_batch && seen < window) {
-      consider(pending.front());
-      pending.pop_front();
-    }
-    while (next < path.size() && pending.empty() && taken < max_batch && seen < window) consider(path[next++]);
+    std::size_t head = 0;
+    while (head < pending.size() && taken < max_batch && seen < window) consider(pending[head++]);
+    while (next < path.size() && head == pending.size() && taken < max_batch && seen < window) consider(next++);
     // Deferred nodes come before the pending ones not looked at: both keep their path order.
-    deferred.insert(deferred.end(), pending.begin(), pending.end());
+    deferred.insert(deferred.end(), pending.begin() + static_cast<std::ptrdiff_t>(head), pending.end());
     pending.swap(deferred);
     ++id;
   }
