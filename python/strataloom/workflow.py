@@ -523,6 +523,7 @@ def check_study(
     itemsize = 2 if study.variables[study.engine.variable].kind == "categorical" else 4
     store_bytes = n * g.size * itemsize
     per_proc = ti.nbytes + g.size * (8 + 4) + (0 if prep.soft is None else prep.soft.nbytes)
+    per_proc += sum(zti.nbytes for _, zti, _ in prep.zone_engines if zti is not ti)
     lines.append(
         f"engine {study.engine.name}, {n} realizations, master seed "
         f"{study.ensemble.seed}, {p} processes"
