@@ -357,29 +357,54 @@ void bind_direct(py::module_& m) {
       .def_property_readonly("reach", &ds::TrainingImage::reach)
       .def_property_readonly("variables", &ds::TrainingImage::variables);
 
+  // One call for one or several zones: `tis[z]` with `zone_params[z]` = (neighbors, accept_distance,
+  // scan_fraction, search, weights, lag_power); `zone` (int32 per cell) or None; `matrices` ((k, 9)
+  // float64) and `classes` (int32 per cell) for the local geometry, or None.
   m.def(
       "direct_simulate",
-      [](const ds::TrainingImage& ti, std::array<Index, 3> shape, const std::vector<CArray<float>>& state_in,
-         const std::vector<bool>& auxiliary, std::int32_t neighbors, double accept_distance, double scan_fraction,
-         const CArray<std::int64_t>& search, const std::vector<double>& weights, double lag_power, const std::string& path,
+      [](const std::vector<const ds::TrainingImage*>& tis, std::array<Index, 3> shape,
+         const std::vector<CArray<float>>& state_in, const std::vector<bool>& auxiliary, const py::list& zone_params,
+         const py::object& zone_in, const py::object& matrices_in, const py::object& classes_in, const std::string& path,
          std::uint64_t seed, int threads, std::int64_t max_batch, const py::object& progress) {
         const sl::Grid grid(to_ijk(shape));
-        ds::Params params;
-        params.neighbors = neighbors;
-        params.accept_distance = accept_distance;
-        params.scan_fraction = scan_fraction;
-        params.search = offsets_from(search, "search_radius");
-        params.weights = weights;
-        params.lag_power = lag_power;
-        if (path == "random")
-          params.path = ds::PathKind::random;
-        else if (path == "sweep")
-          params.path = ds::PathKind::sweep;
-        else
-          throw sl::ParameterError("path", "must be 'random' or 'sweep'; got '" + path + "'.");
-        params.seed = seed;
-        params.threads = threads;
-        params.max_batch = max_batch;
+        if (zone_params.size() != tis.size() || tis.empty())
+          throw sl::ParameterError("zones", "must give one parameter set per training image.");
+        std::vector<ds::Params> params;
+        for (const auto& item : zone_params) {
+          const auto t = item.cast<py::tuple>();
+          if (t.size() != 6) throw sl::ParameterError("zones", "must give parameter sets of 6 entries.");
+          ds::Params p;
+          p.neighbors = t[0].cast<std::int32_t>();
+          p.accept_distance = t[1].cast<double>();
+          p.scan_fraction = t[2].cast<double>();
+          p.search = offsets_from(t[3].cast<CArray<std::int64_t>>(), "search_radius");
+          p.weights = t[4].cast<std::vector<double>>();
+          p.lag_power = t[5].cast<double>();
+          if (path == "random")
+            p.path = ds::PathKind::random;
+          else if (path == "sweep")
+            p.path = ds::PathKind::sweep;
+          else
+            throw sl::ParameterError("path", "must be 'random' or 'sweep'; got '" + path + "'.");
+          p.seed = seed;
+          p.threads = threads;
+          p.max_batch = max_batch;
+          params.push_back(std::move(p));
+        }
+        CArray<std::int32_t> zone, classes;
+        CArray<double> matrices;
+        if (!zone_in.is_none()) {
+          zone = zone_in.cast<CArray<std::int32_t>>();
+          if (zone.size() != grid.size()) throw sl::ParameterError("zones", "must hold one zone per grid cell.");
+        }
+        ds::Geometry geometry;
+        if (!classes_in.is_none()) {
+          classes = classes_in.cast<CArray<std::int32_t>>();
+          matrices = matrices_in.cast<CArray<double>>();
+          if (classes.size() != grid.size()) throw sl::ParameterError("rotation", "must hold one class per grid cell.");
+          geometry.matrices.assign(matrices.data(), matrices.data() + matrices.size());
+          geometry.cls = classes.data();
+        }
         std::vector<py::array_t<float>> state;
         std::vector<float*> ptrs;
         for (const auto& a : state_in) {
@@ -393,10 +418,11 @@ void bind_direct(py::module_& m) {
         std::int64_t* src = source.mutable_data();
         sl::WorkControl ctl;
         const sl::Poll poll = make_poll(&progress);
+        const std::int32_t* zone_ptr = zone_in.is_none() ? nullptr : zone.data();
         ds::Stats st;
         {
           py::gil_scoped_release release;
-          st = ds::simulate(ti, grid, ptrs, auxiliary, params, src, ctl, poll);
+          st = ds::simulate_zones(tis, params, zone_ptr, geometry, grid, ptrs, auxiliary, src, ctl, poll);
         }
         py::dict stats;
         stats["nodes"] = st.nodes;
@@ -411,9 +437,9 @@ void bind_direct(py::module_& m) {
         stats["threads"] = st.threads;
         return py::make_tuple(state, source, stats);
       },
-      py::arg("ti"), py::arg("shape"), py::arg("state"), py::arg("auxiliary"), py::arg("neighbors"),
-      py::arg("accept_distance"), py::arg("scan_fraction"), py::arg("search"), py::arg("weights"), py::arg("lag_power"),
-      py::arg("path"), py::arg("seed"), py::arg("threads"), py::arg("max_batch"), py::arg("progress") = py::none());
+      py::arg("tis"), py::arg("shape"), py::arg("state"), py::arg("auxiliary"), py::arg("zone_params"),
+      py::arg("zone"), py::arg("matrices"), py::arg("classes"), py::arg("path"), py::arg("seed"), py::arg("threads"),
+      py::arg("max_batch"), py::arg("progress") = py::none());
 }
 
 }  // namespace

@@ -231,6 +231,8 @@ def test_documented_example_study_is_valid(tmp_path):
     assert s.wells[1].collar == (812.5, 640.0, 78.0)
     assert s.soft_data is not None and s.soft_data.components == 6
     assert s.engine.parameters["tau"] == [1.0, 1.0]
+    assert s.geometry is not None and s.geometry.azimuth == 30.0 and s.geometry.affinity == (1.0, 1.0, 1.5)
+    assert s.zones is not None and s.zones.zones[1].parameters == {"min_replicates": 3}
 
 
 def test_demo_study_is_valid_and_calibrates(tmp_path):

@@ -137,7 +137,13 @@ def test_bad_zones(channel_tree):
     with pytest.raises(ValueError, match="zones"):
         sl.simulate_zones([channel_tree], np.zeros((5, 10), int), (10, 10))
     other = sl.PatternTree(np.arange(36).reshape(6, 6) % 3, sl.Template.box((0, 1, 1)), levels=3)
-    with pytest.raises(ValueError, match="trees"):
+    with pytest.raises(ValueError, match="engines"):
         sl.simulate_zones([channel_tree, other], np.zeros((10, 10), int), (10, 10))
-    with pytest.raises(TypeError, match="trees"):
+    with pytest.raises(TypeError, match="engines"):
         sl.simulate_zones(channel_tree, np.zeros((10, 10), int), (10, 10))
+
+
+def test_dip_needs_a_3d_training_image(channel_tree):
+    # A flat TI cannot be tipped: refused rather than silently dropped.
+    with pytest.raises(ValueError, match="2-D training image"):
+        channel_tree.simulate((4, 20, 20), rotation=(0.0, 20.0))

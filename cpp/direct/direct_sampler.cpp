@@ -312,37 +312,61 @@ struct Look {
   float weight;
 };
 
+// One zone: its TI, parameters and search window seen from the grid and from the TI.
+struct ZoneData {
+  const TrainingImage* ti = nullptr;
+  const Params* params = nullptr;
+  std::vector<Look> looks;
+  Index limit = 1;
+  float accept = 0;
+};
+
+// Splits a padded offset d as q * stride + r with 0 <= r < stride.
+inline void split_delta(std::int64_t d, std::int64_t st, std::int64_t& q, std::int64_t& r) noexcept {
+  q = d >= 0 ? d / st : -((-d + st - 1) / st);
+  r = d - q * st;
+}
+
 class Simulation {
  public:
-  Simulation(const TrainingImage& ti, const Grid& grid, const std::vector<float*>& state,
-             const std::vector<bool>& auxiliary, const Params& params, std::int64_t* source)
-      : ti_(ti), grid_(grid), state_(state), auxiliary_(auxiliary), params_(params), source_(source) {
-    nvar_ = ti.variables();
-    looks_.reserve(params.search.size());
-    for (const Offset& o : params.search) {
-      const double h = std::sqrt(double(o[0]) * o[0] + double(o[1]) * o[1] + double(o[2]) * o[2]);
-      const auto w = static_cast<float>(std::pow(1.0 + h, -params.lag_power));
-      const std::int64_t d = ti.padded_delta(o), st = ti.stride();
-      const std::int64_t q = d >= 0 ? d / st : -((-d + st - 1) / st);
-      looks_.push_back({o, (std::int64_t{o[0]} * grid.shape()[1] + o[1]) * grid.shape()[2] + o[2], d, q, d - q * st, w});
+  Simulation(const std::vector<const TrainingImage*>& tis, const std::vector<Params>& params, const std::int32_t* zone,
+             const Geometry& geometry, const Grid& grid, const std::vector<float*>& state,
+             const std::vector<bool>& auxiliary, std::int64_t* source)
+      : grid_(grid), state_(state), auxiliary_(auxiliary), zone_(zone), geometry_(geometry), source_(source) {
+    nvar_ = tis[0]->variables();
+    for (std::size_t z = 0; z < tis.size(); ++z) {
+      ZoneData zd;
+      zd.ti = tis[z];
+      zd.params = &params[z];
+      const TrainingImage& ti = *tis[z];
+      zd.looks.reserve(params[z].search.size());
+      for (const Offset& o : params[z].search) {
+        const double h = std::sqrt(double(o[0]) * o[0] + double(o[1]) * o[1] + double(o[2]) * o[2]);
+        const auto w = static_cast<float>(std::pow(1.0 + h, -params[z].lag_power));
+        const std::int64_t d = ti.padded_delta(o);
+        std::int64_t q = 0, r = 0;
+        split_delta(d, ti.stride(), q, r);
+        zd.looks.push_back({o, (std::int64_t{o[0]} * grid.shape()[1] + o[1]) * grid.shape()[2] + o[2], d, q, r, w});
+      }
+      const Index n = ti.size();
+      zd.limit = std::clamp<Index>(static_cast<Index>(std::ceil(params[z].scan_fraction * static_cast<double>(n))), 1, n);
+      zd.accept = static_cast<float>(params[z].accept_distance);
+      max_neighbors_ = std::max(max_neighbors_, params[z].neighbors);
+      zones_.push_back(std::move(zd));
     }
-    const Index n = ti.size();
-    limit_ = std::clamp<Index>(static_cast<Index>(std::ceil(params.scan_fraction * static_cast<double>(n))), 1, n);
-    accept_ = static_cast<float>(params.accept_distance);
   }
 
   Worker make_worker() const {
     Worker w;
     w.lags.resize(static_cast<std::size_t>(nvar_));
     for (auto& l : w.lags) {
-      const auto cap = static_cast<std::size_t>(params_.neighbors) + 1;
+      const auto cap = static_cast<std::size_t>(max_neighbors_) + 1;
       l.delta.resize(cap);
       l.q.resize(cap);
       l.r.resize(cap);
       l.value.resize(cap);
       l.weight.resize(cap);
     }
-    w.view.informed = ti_.informed();
     return w;
   }
 
@@ -355,19 +379,25 @@ class Simulation {
     return need;
   }
 
+  const ZoneData& zone_of(Index c) const noexcept {
+    return zones_[zone_ ? static_cast<std::size_t>(zone_[c]) : std::size_t{0}];
+  }
+
   // Simulates the node at path position `pos`; false when the run was cancelled meanwhile.
   bool node(Index c, std::int64_t pos, Worker& w) const {
     const std::uint32_t need = need_at(c);
     if (!need) return true;
     const double t0 = thread_cpu_seconds();
-    if (!gather(c, pos, w)) return false;
+    const ZoneData& zd = zone_of(c);
+    if (!gather(c, pos, zd, w)) return false;
     Index src = -1;
     float dist = 0;
-    const bool accepted = scan(c, need, w, src, dist);
+    const bool accepted = scan(c, need, zd, w, src, dist);
     if (src < 0) throw ParameterError("training_image", "has no cell informed in every variable a node needs.");
-    const std::int64_t e = ti_.slot(ti_.padded_index(src));
+    const TrainingImage& ti = *zd.ti;
+    const std::int64_t e = ti.slot(ti.padded_index(src));
     for (int v = 0; v < nvar_; ++v)
-      if (need & (std::uint32_t{1} << v)) state_[static_cast<std::size_t>(v)][c] = ti_.data(v)[e];
+      if (need & (std::uint32_t{1} << v)) state_[static_cast<std::size_t>(v)][c] = ti.data(v)[e];
     source_[c] = src;
     w.stats.cpu_seconds += thread_cpu_seconds() - t0;
     ++w.stats.nodes;
@@ -401,12 +431,32 @@ class Simulation {
     }
   }
 
+  // The TI lag compared with grid lag `lag` at a node of class `cls`: rint(M lag), half to even
+  // (the default rounding mode), as padded offset split into q and r.
+  void turned(const Offset& lag, const double* m, const TrainingImage& ti, std::int64_t& d, std::int64_t& q,
+              std::int64_t& r) const {
+    Offset t{};
+    for (int a = 0; a < 3; ++a) {
+      const double x = m[3 * a] * lag[0] + m[3 * a + 1] * lag[1] + m[3 * a + 2] * lag[2];
+      const double k = std::nearbyint(x);
+      if (std::abs(k) > ti.reach()[a])
+        throw ParameterError("rotation", "turns or stretches the search window beyond the training image's padding; "
+                                         "pad it for the widest turned lag.");
+      t[a] = static_cast<std::int32_t>(k);
+    }
+    d = ti.padded_delta(t);
+    split_delta(d, ti.stride(), q, r);
+  }
+
   // The n nearest informed nodes per variable: the node itself when informed, then the search
   // window in its order (nearest first), stopping once every variable has n.
   // Reads exactly what a one-thread run in path order would see: a cell that is a node of the path
   // counts only when it comes earlier on the path, and then its values are waited for.
-  bool gather(Index c, std::int64_t pos, Worker& w) const {
-    const int n = params_.neighbors;
+  bool gather(Index c, std::int64_t pos, const ZoneData& zd, Worker& w) const {
+    const Params& params = *zd.params;
+    const TrainingImage& ti = *zd.ti;
+    const int n = params.neighbors;
+    const double* m = geometry_.cls ? geometry_.matrices.data() + 9 * static_cast<std::size_t>(geometry_.cls[c]) : nullptr;
     int open = 0;
     for (int v = 0; v < nvar_; ++v) {
       auto& l = w.lags[static_cast<std::size_t>(v)];
@@ -426,7 +476,7 @@ class Simulation {
     }
     const Ijk at = grid_.cell(c);
     const Ijk& shape = grid_.shape();
-    for (const Look& look : looks_) {
+    for (const Look& look : zd.looks) {
       if (open == 0) break;
       const Index z = at[0] + look.lag[0], y = at[1] + look.lag[1], x = at[2] + look.lag[2];
       if (z < 0 || z >= shape[0] || y < 0 || y >= shape[1] || x < 0 || x >= shape[2]) continue;
@@ -435,15 +485,21 @@ class Simulation {
       // A node later on the path has only its given variables yet; an earlier one must be done.
       const std::uint32_t pending = og > pos ? need_of_[g] : 0;
       if (og >= 0 && og < pos && !wait_for(g, w)) return false;
+      std::int64_t d = look.ti_delta, q = look.q, r = look.r;
+      bool placed = m == nullptr;
       for (int v = 0; v < nvar_; ++v) {
         auto& l = w.lags[static_cast<std::size_t>(v)];
         if (l.size >= n || (pending & (std::uint32_t{1} << v))) continue;
         const float val = state_[static_cast<std::size_t>(v)][g];
         if (std::isnan(val)) continue;
+        if (!placed) {
+          turned(look.lag, m, ti, d, q, r);
+          placed = true;
+        }
         const auto k = static_cast<std::size_t>(l.size++);
-        l.delta[k] = look.ti_delta;
-        l.q[k] = look.q;
-        l.r[k] = look.r;
+        l.delta[k] = d;
+        l.q[k] = q;
+        l.r[k] = r;
         l.value[k] = val;
         l.weight[k] = look.weight;
         l.weight_sum += look.weight;
@@ -452,24 +508,24 @@ class Simulation {
     }
     double total = 0;
     for (int v = 0; v < nvar_; ++v)
-      if (w.lags[static_cast<std::size_t>(v)].size > 0) total += params_.weights[static_cast<std::size_t>(v)];
+      if (w.lags[static_cast<std::size_t>(v)].size > 0) total += params.weights[static_cast<std::size_t>(v)];
     auto& view = w.view;
+    view.informed = ti.informed();
     view.count = 0;
     for (int v = 0; v < nvar_; ++v) {
       const auto& l = w.lags[static_cast<std::size_t>(v)];
       if (l.size == 0) continue;
       const auto a = static_cast<std::size_t>(view.count++);
-      view.data[a] = ti_.data(v);
+      view.data[a] = ti.data(v);
       view.lags[a] = &l;
-      view.share[a] = static_cast<float>(params_.weights[static_cast<std::size_t>(v)] / total);
+      view.share[a] = static_cast<float>(params.weights[static_cast<std::size_t>(v)] / total);
       view.inv_share[a] = 1.0f / view.share[a];
       view.sum[a] = static_cast<float>(l.weight_sum);
-      view.categorical[a] = ti_.kind(v) == Kind::categorical;
+      view.categorical[a] = ti.kind(v) == Kind::categorical;
     }
     return true;
   }
 
-  // Scans the TI from the node's random start; returns true when a candidate was accepted.
   // Sets the slot offsets of every lag for scan phase `phase`.
   static void enter_phase(const TrainingImage& ti, Worker& w, std::int64_t phase) {
     for (auto& l : w.lags)
@@ -478,16 +534,20 @@ class Simulation {
             ti.phase_delta(l.q[static_cast<std::size_t>(k)], l.r[static_cast<std::size_t>(k)], phase);
   }
 
-  bool scan(Index c, std::uint32_t need, Worker& w, Index& src, float& dist) const {
-    const Index n = ti_.size();
-    const std::int64_t s = ti_.stride(), K = ti_.phase_length();
-    const std::uint32_t* before = ti_.real_before();
+  // Scans the TI from the node's random start; returns true when a candidate was accepted.
+  bool scan(Index c, std::uint32_t need, const ZoneData& zd, Worker& w, Index& src, float& dist) const {
+    const TrainingImage& ti = *zd.ti;
+    const Index limit = zd.limit;
+    const float accept = zd.accept;
+    const Index n = ti.size();
+    const std::int64_t s = ti.stride(), K = ti.phase_length();
+    const std::uint32_t* before = ti.real_before();
     w.view.need = need;
     float best = std::numeric_limits<float>::infinity();
     Index best_src = -1;
-    const std::int64_t e0 = ti_.slot(ti_.padded_index(detail::scan_start(params_.seed, c, n)));
+    const std::int64_t e0 = ti.slot(ti.padded_index(detail::scan_start(seed_of(), c, n)));
     std::int64_t phase = e0 / K, k = e0 % K;
-    enter_phase(ti_, w, phase);
+    enter_phase(ti, w, phase);
     Index scanned = 0;
     float d[kLanes];
     Stats& st = w.stats;
@@ -495,7 +555,7 @@ class Simulation {
       const std::int64_t e = phase * K + k;
       int lanes = static_cast<int>(std::min<std::int64_t>(kLanes, K - k));
       Index real = before[e + lanes] - before[e];
-      const Index left = scanned < limit_ ? limit_ - scanned : n - scanned;
+      const Index left = scanned < limit ? limit - scanned : n - scanned;
       if (real > left) {  // stop exactly at the limit
         lanes = 0;
         while (static_cast<Index>(before[e + lanes] - before[e]) < left) ++lanes;
@@ -503,24 +563,24 @@ class Simulation {
       }
       st.candidates += real;
       if (real > 0 && detail::evaluate_block(w.view, e, lanes, best, d, st.comparisons)) {
-        if (scanned >= limit_) {
+        if (scanned >= limit) {
           // Past the limit with nothing usable seen: the first informed candidate is taken.
           for (int j = 0; j < lanes; ++j)
             if (d[j] < std::numeric_limits<float>::infinity()) {
-              src = ti_.real_index(e + j);
+              src = ti.real_index(e + j);
               dist = d[j];
-              return d[j] <= accept_;
+              return d[j] <= accept;
             }
         }
         for (int j = 0; j < lanes; ++j) {
-          if (d[j] <= accept_) {
-            src = ti_.real_index(e + j);
+          if (d[j] <= accept) {
+            src = ti.real_index(e + j);
             dist = d[j];
             return true;
           }
           if (d[j] < best) {
             best = d[j];
-            best_src = ti_.real_index(e + j);
+            best_src = ti.real_index(e + j);
           }
         }
       }
@@ -529,40 +589,36 @@ class Simulation {
       if (k == K) {
         k = 0;
         if (++phase == s) phase = 0;
-        enter_phase(ti_, w, phase);
+        enter_phase(ti, w, phase);
       }
-      if (scanned >= limit_ && best_src >= 0) break;
+      if (scanned >= limit && best_src >= 0) break;
     }
     src = best_src;
     dist = best;
     return false;
   }
 
-  const TrainingImage& ti_;
+  std::uint64_t seed_of() const noexcept { return zones_[0].params->seed; }
+
   const Grid& grid_;
   const std::vector<float*>& state_;
   const std::vector<bool>& auxiliary_;
-  const Params& params_;
+  const std::int32_t* zone_;
+  const Geometry& geometry_;
   std::int64_t* source_;
   int nvar_ = 0;
-  std::vector<Look> looks_;
-  Index limit_ = 1;
-  float accept_ = 0;
+  int max_neighbors_ = 1;
+  std::vector<ZoneData> zones_;
   const std::int64_t* order_ = nullptr;
   const std::uint32_t* need_of_ = nullptr;
   const std::atomic<std::uint8_t>* done_ = nullptr;
   const WorkControl* ctl_ = nullptr;
 };
 
-void check(const TrainingImage& ti, const Grid& grid, const std::vector<float*>& state, const std::vector<bool>& auxiliary,
-           const Params& params, const std::int64_t* source) {
+void check_params(const TrainingImage& ti, const Params& params, bool turned) {
   const int nvar = ti.variables();
-  require(static_cast<int>(state.size()) == nvar, "hard", "must give one grid array per training-image variable.");
-  require(static_cast<int>(auxiliary.size()) == nvar, "auxiliary", "must flag every training-image variable.");
   require(static_cast<int>(params.weights.size()) == nvar, "weights", "must hold one weight per variable.");
-  require(source != nullptr, "source", "must be given.");
   for (int v = 0; v < nvar; ++v) {
-    require(state[static_cast<std::size_t>(v)] != nullptr, "hard", "is missing the grid array of a variable.");
     const double w = params.weights[static_cast<std::size_t>(v)];
     require(std::isfinite(w) && w > 0, "weights", "must hold finite positive numbers.");
   }
@@ -571,14 +627,48 @@ void check(const TrainingImage& ti, const Grid& grid, const std::vector<float*>&
   require(params.scan_fraction > 0 && params.scan_fraction <= 1, "scan_fraction", "must be a number in (0, 1].");
   require(std::isfinite(params.lag_power) && params.lag_power >= 0, "lag_power", "must be a finite number >= 0.");
   require(params.max_batch >= 1, "max_batch", "must be at least 1.");
+  if (turned) return;  // turned lags are checked against the padding as they are made
   for (const Offset& o : params.search)
     for (int a = 0; a < 3; ++a)
       require(std::abs(o[a]) <= ti.reach()[a], "search_radius",
               "reaches beyond the padding of the training image; build the image with the same radius.");
+}
+
+void check(const std::vector<const TrainingImage*>& tis, const std::vector<Params>& params, const std::int32_t* zone,
+           const Geometry& geometry, const Grid& grid, const std::vector<float*>& state,
+           const std::vector<bool>& auxiliary, const std::int64_t* source) {
+  require(!tis.empty() && tis.size() == params.size(), "zones", "must give one training image and parameter set per zone.");
+  for (const TrainingImage* t : tis) require(t != nullptr, "zones", "must give a training image for every zone.");
+  const TrainingImage& ti = *tis[0];
+  const int nvar = ti.variables();
+  for (const TrainingImage* t : tis) {
+    require(t->variables() == nvar, "zones", "must give training images holding the same variables.");
+    for (int v = 0; v < nvar; ++v)
+      require(t->kind(v) == ti.kind(v), "zones", "must give training images whose variables have the same kinds.");
+  }
+  require(static_cast<int>(state.size()) == nvar, "hard", "must give one grid array per training-image variable.");
+  require(static_cast<int>(auxiliary.size()) == nvar, "auxiliary", "must flag every training-image variable.");
+  require(source != nullptr, "source", "must be given.");
+  for (int v = 0; v < nvar; ++v)
+    require(state[static_cast<std::size_t>(v)] != nullptr, "hard", "is missing the grid array of a variable.");
+  const bool turned = geometry.cls != nullptr;
+  for (std::size_t z = 0; z < tis.size(); ++z) check_params(*tis[z], params[z], turned);
+  const Index cells = grid.size();
+  if (zone)
+    for (Index i = 0; i < cells; ++i)
+      require(zone[i] >= 0 && static_cast<std::size_t>(zone[i]) < tis.size(), "zones",
+              "must hold zone indices that each have a training image; cell " + str(i) + " has " + str(zone[i]) + ".");
+  if (turned) {
+    const std::size_t classes = geometry.matrices.size() / 9;
+    require(geometry.matrices.size() % 9 == 0 && classes > 0, "rotation", "must give one 3x3 matrix per class.");
+    for (double x : geometry.matrices) require(std::isfinite(x), "rotation", "must give finite matrices.");
+    for (Index i = 0; i < cells; ++i)
+      require(geometry.cls[i] >= 0 && static_cast<std::size_t>(geometry.cls[i]) < classes, "rotation",
+              "must give a class of a known matrix for every cell; cell " + str(i) + " has " + str(geometry.cls[i]) + ".");
+  }
   bool simulated = false;
   for (int v = 0; v < nvar; ++v) simulated |= !auxiliary[static_cast<std::size_t>(v)];
   require(simulated, "auxiliary", "must leave at least one variable to simulate.");
-  const Index cells = grid.size();
   for (int v = 0; v < nvar; ++v) {
     if (!auxiliary[static_cast<std::size_t>(v)]) continue;
     const float* s = state[static_cast<std::size_t>(v)];
@@ -593,43 +683,59 @@ void check(const TrainingImage& ti, const Grid& grid, const std::vector<float*>&
 Stats simulate(const TrainingImage& ti, const Grid& grid, const std::vector<float*>& state,
                const std::vector<bool>& auxiliary, const Params& params, std::int64_t* source, WorkControl& ctl,
                const Poll& poll) {
-  check(ti, grid, state, auxiliary, params, source);
+  return simulate_zones({&ti}, {params}, nullptr, Geometry{}, grid, state, auxiliary, source, ctl, poll);
+}
+
+Stats simulate_zones(const std::vector<const TrainingImage*>& tis, const std::vector<Params>& params,
+                     const std::int32_t* zone, const Geometry& geometry, const Grid& grid,
+                     const std::vector<float*>& state, const std::vector<bool>& auxiliary, std::int64_t* source,
+                     WorkControl& ctl, const Poll& poll) {
+  check(tis, params, zone, geometry, grid, state, auxiliary, source);
+  const Params& global = params[0];
   const auto t0 = std::chrono::steady_clock::now();
-  Simulation sim(ti, grid, state, auxiliary, params, source);
+  Simulation sim(tis, params, zone, geometry, grid, state, auxiliary, source);
   const Index cells = grid.size();
   std::fill(source, source + cells, std::int64_t{-1});
 
+  const int nvar = tis[0]->variables();
   std::uint32_t all = 0;
-  for (int v = 0; v < ti.variables(); ++v)
+  for (int v = 0; v < nvar; ++v)
     if (!auxiliary[static_cast<std::size_t>(v)]) all |= std::uint32_t{1} << v;
   std::vector<Index> path;
   std::vector<std::uint32_t> need_of(static_cast<std::size_t>(cells), 0);
-  bool any_full = false;
+  std::vector<std::uint8_t> any_full(tis.size(), 0), any_node(tis.size(), 0);
   for (Index c = 0; c < cells; ++c) {
     const std::uint32_t need = sim.need_at(c);
     need_of[static_cast<std::size_t>(c)] = need;
-    if (need) path.push_back(c);
-    any_full |= need == all;
+    const std::size_t z = zone ? static_cast<std::size_t>(zone[c]) : 0;
+    if (need) {
+      path.push_back(c);
+      any_node[z] = 1;
+    }
+    if (need == all) any_full[z] = 1;
   }
-  if (!path.empty()) {
+  for (std::size_t z = 0; z < tis.size(); ++z) {
+    if (!any_node[z]) continue;
     // A node missing every variable needs a TI cell informed in all of them; others need a subset.
-    const Index usable = ti.count_informed(any_full ? all : 0);
+    const Index usable = tis[z]->count_informed(any_full[z] ? all : 0);
     require(usable > 0, "training_image",
-            "has no cell where every simulated variable is informed; at least one is needed to copy from.");
+            "has no cell where every simulated variable is informed; at least one is needed to copy from" +
+                (tis.size() > 1 ? " (zone " + str(static_cast<std::int64_t>(z)) + ")." : std::string(".")));
   }
   ctl.total = static_cast<std::int64_t>(path.size());
 
   // Path order. Random: shuffled, then reordered into conflict-free batches (nodes of one batch
   // cannot see each other), which spreads consecutive nodes apart so that workers rarely wait on
   // each other. Sweep: flat order, a unilateral scheme in which every node depends on the previous
-  // one, so it runs on one thread.
-  int threads = resolve_threads(params.threads);
-  if (params.path == PathKind::random) {
-    shuffle_path(path, params.seed, 0);
+  // one, so it runs on one thread. The reach is the widest search window of any zone (on the grid).
+  int threads = resolve_threads(global.threads);
+  if (global.path == PathKind::random) {
+    shuffle_path(path, global.seed, 0);
     Offset reach{0, 0, 0};
-    for (const Offset& o : params.search)
-      for (int a = 0; a < 3; ++a) reach[a] = std::max(reach[a], std::abs(o[a]));
-    conflict_free_batches(grid, 0, reach, path, params.max_batch);
+    for (const Params& p : params)
+      for (const Offset& o : p.search)
+        for (int a = 0; a < 3; ++a) reach[a] = std::max(reach[a], std::abs(o[a]));
+    conflict_free_batches(grid, 0, reach, path, global.max_batch);
   } else {
     threads = 1;
   }

@@ -145,6 +145,15 @@ struct Stats {
   int threads = 0;               // worker threads used
 };
 
+// Local geometry (rotation and affinity): the lag h from a node to a grid neighbour is compared with
+// the TI lag rint(M h) (rounded half to even), M the 3x3 matrix (row-major, axes z, y, x) of the
+// node's class. M maps grid lags into the TI's frame: the inverse of the turn-and-stretch that takes
+// TI structures to the grid's. Empty: every lag is compared as it is.
+struct Geometry {
+  std::vector<double> matrices;             // 9 per class
+  const std::int32_t* cls = nullptr;        // class of every grid cell (grid.size() entries)
+};
+
 // Simulates every grid node at which some non-auxiliary variable is unknown (NaN in `state`).
 // Scheduling: the random path is shuffled (counter-based keys) and reordered by
 // conflict_free_batches with the search reach, then workers take nodes in that order; a node waits
@@ -157,6 +166,16 @@ struct Stats {
 Stats simulate(const TrainingImage& ti, const Grid& grid, const std::vector<float*>& state,
                const std::vector<bool>& auxiliary, const Params& params, std::int64_t* source, WorkControl& ctl,
                const Poll& poll);
+
+// Zones: zone z of the grid copies from tis[z] with params[z] (neighbours, thresholds, search window,
+// weights, lag power); path, seed, threads and max_batch come from params[0]. `zone` holds the zone of
+// every grid cell (null: all zone 0). Nodes read their neighbours whatever their zone, so borders see
+// both sides; `source` holds indices into the node's own zone TI. All TIs hold the same variables
+// and kinds, in one set of normalised units.
+Stats simulate_zones(const std::vector<const TrainingImage*>& tis, const std::vector<Params>& params,
+                     const std::int32_t* zone, const Geometry& geometry, const Grid& grid,
+                     const std::vector<float*>& state, const std::vector<bool>& auxiliary, std::int64_t* source,
+                     WorkControl& ctl, const Poll& poll);
 
 namespace detail {
 

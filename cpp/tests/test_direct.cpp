@@ -330,3 +330,46 @@ SL_TEST(direct_cancel_stops_the_run) {
                     Cancelled);
   }
 }
+
+// Zones and local geometry: an identity matrix and one zone reproduce the plain run; two zones with
+// the same image give the same result as one; a turned lag beyond the padding is refused.
+SL_TEST(direct_zones_and_geometry_reduce_to_the_plain_run) {
+  const Ijk tshape{1, 30, 30};
+  const auto a = field(tshape, 3, 0);
+  const auto t = Template::ellipsoid({0, 3, 3}, 0);
+  const TrainingImage img(tshape, {a.data()}, {Kind::continuous}, t.reach());
+  const Grid grid({1, 24, 24});
+  const auto cells = static_cast<std::size_t>(grid.size());
+  Params p = params_for(t, 8, 0.05, 0.5, 1);
+  p.seed = 2;
+  auto run = [&](const std::vector<const TrainingImage*>& tis, const std::vector<Params>& ps, const std::int32_t* zone,
+                 const sl::direct::Geometry& geo) {
+    std::vector<float> s(cells, std::numeric_limits<float>::quiet_NaN());
+    s[17] = 0.5f;
+    std::vector<float*> ptrs{s.data()};
+    std::vector<std::int64_t> source(cells);
+    WorkControl ctl;
+    sl::direct::simulate_zones(tis, ps, zone, geo, grid, ptrs, {false}, source.data(), ctl, Poll{});
+    return source;
+  };
+  std::vector<float> s(cells, std::numeric_limits<float>::quiet_NaN());
+  s[17] = 0.5f;
+  std::vector<float*> ptrs{s.data()};
+  std::vector<std::int64_t> plain(cells);
+  WorkControl ctl;
+  simulate(img, grid, ptrs, {false}, p, plain.data(), ctl, Poll{});
+  sl::direct::Geometry identity;
+  identity.matrices = {1, 0, 0, 0, 1, 0, 0, 0, 1};
+  std::vector<std::int32_t> cls(cells, 0);
+  identity.cls = cls.data();
+  SL_CHECK(run({&img}, {p}, nullptr, identity) == plain);
+  std::vector<std::int32_t> zone(cells, 0);
+  for (std::size_t i = cells / 2; i < cells; ++i) zone[i] = 1;
+  SL_CHECK(run({&img, &img}, {p, p}, zone.data(), sl::direct::Geometry{}) == plain);
+  sl::direct::Geometry wide;
+  wide.matrices = {1, 0, 0, 0, 4, 0, 0, 0, 4};  // lags four times longer than the padding allows
+  wide.cls = cls.data();
+  SL_CHECK_THROWS(run({&img}, {p}, nullptr, wide), ParameterError);
+  zone[3] = 2;  // a zone without a training image
+  SL_CHECK_THROWS(run({&img, &img}, {p, p}, zone.data(), sl::direct::Geometry{}), ParameterError);
+}

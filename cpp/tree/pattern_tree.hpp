@@ -19,9 +19,9 @@
 //
 // Query orders. The trees of `levels` take the template nodes in template order (nearest first).
 // For staged simulation a tree can also be asked for a variant of a level that takes the nodes in
-// another order (`ordered_variant`): its centres are sorted by that order, its tree nodes are kept
-// only down to a depth where they stay few (`tree_depth`), and deeper queries finish on the bit
-// planes, which cost bits per centre rather than nodes per pattern.
+// another order (`ordered_variant`); its centres are sorted by that order. Every tree keeps its
+// nodes only down to the depth where they would pass `node_cap()` (`tree_depth`); deeper queries
+// finish on the bit planes, which cost bits per centre rather than nodes per pattern.
 //
 // Queries walk the tree depth by depth, following every child at template nodes outside the event
 // (marginalisation) and only the matching child at informed ones. When the frontier grows so wide

@@ -27,7 +27,8 @@ Ijk nearest_level_node(const Grid& grid, const Ijk& c, int level) {
   return out;
 }
 
-// Staged refinement of a multiple-grid level. A cell simulated at level g < coarsest has a parity
+// Staged refinement of a multiple-grid level (in the spirit of the sub-grids of Strebelle &
+// Cavelius 2014, Mathematical Geosciences 46(2); recalled from memory). A cell simulated at level g < coarsest has a parity
 // class p (bit a set when its level-g coordinate along axis a is odd; p = 0 are nodes of level g + 1).
 // The classes are simulated one after the other, in kStageOrder, each on its own random path; the
 // level's own nodes released by relocated hard data (class 0) come last. A template node o of a cell

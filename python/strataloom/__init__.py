@@ -31,8 +31,9 @@ from .training import (
     gaussian_field,
     rank_training_images,
 )
-from .tree import PatternTree, simulate_zones, turned_image
+from .tree import PatternTree, turned_image
 from .workflow import check_study, prepare, run_study
+from .zones import simulate_zones
 
 try:
     __version__ = _version("strataloom")

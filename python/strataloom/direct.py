@@ -22,6 +22,7 @@ the TI does not vary along).
 
 from __future__ import annotations
 
+import dataclasses
 import numbers
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
@@ -31,6 +32,7 @@ import numpy as np
 
 from . import _core
 from . import _validate as v
+from .geometry import grid_to_ti, local_geometry
 from .template import Template
 
 __all__ = ["DirectSampler"]
@@ -253,6 +255,7 @@ class DirectSampler:
         self.auxiliary = auxiliary
         self.last_stats: dict[str, Any] | None = None
         self._prepared: tuple[Any, ...] | None = None
+        self._images: dict[tuple, Any] = {}
         self._prepare()
 
     # -- validation and preparation (the one place) --
@@ -289,7 +292,25 @@ class DirectSampler:
             tpl.reach,
         )
         self._prepared = (key, variables, shape, tpl, ti)
+        self._images = {(tuple(tpl.reach), None): ti}
         return variables, params, tpl, ti
+
+    def _image(self, reach: tuple[int, int, int], scale: tuple[tuple[float, float], ...] | None) -> Any:
+        """The compiled TI padded by ``reach``, continuous values normalised by ``scale`` ((low, span)
+        per variable; None: the TI's own range). Built once per (reach, scale)."""
+        variables, _, _, _ = self._prepare()
+        key = (tuple(int(r) for r in reach), scale)
+        if key not in self._images:
+            values = []
+            for i, x in enumerate(variables):
+                if scale is None or x.kind == "categorical":
+                    values.append(x.normalised)
+                else:
+                    low, span = scale[i]
+                    values.append(((x.original.astype(np.float64) - low) / span).astype(np.float32))
+            self._images[key] = _core.DirectTrainingImage(
+                self._prepared[2], values, [_KINDS.index(x.kind) for x in variables], key[0])
+        return self._images[key]
 
     @property
     def variables(self) -> list[str]:
@@ -317,6 +338,8 @@ class DirectSampler:
         threads: int | None = None,
         path: str = "random",
         return_source: bool = False,
+        rotation: Any = None,
+        affinity: Any = None,
         progress: Callable[[int, int], Any] | None = None,
     ) -> Any:
         """Simulate one realization.
@@ -342,6 +365,13 @@ class DirectSampler:
             on one thread because each node must see every node before it.
         return_source : bool, default False
             Also return the flat TI index each node copied from (-1 where nothing was simulated).
+        rotation : float, (azimuth, dip), array or pair of arrays, optional
+            Turns the TI's structures: azimuth in degrees clockwise from +y toward +x, dip in
+            degrees tipping that direction toward -z (3-D grid and TI only). Constants or
+            ``(nz, ny, nx)`` maps (see `strataloom.geometry`).
+        affinity : float, (fz, fy, fx) or (3, nz, ny, nx) array, optional
+            Stretches the TI's structures per axis before rotation (2 along x: bodies twice as
+            long along x); factors in (0, 16].
         progress : callable, optional
             Called as ``progress(done, total)`` about ten times a second.
 
@@ -351,79 +381,158 @@ class DirectSampler:
             The simulated variable (single-array TI) or a mapping of every non-auxiliary variable.
         source : ndarray of int64
             Only with ``return_source=True``.
+
+        Notes
+        -----
+        With rotation or affinity, each node compares the lag ``h`` to a grid neighbour with the
+        TI lag ``rint(M h)`` (half to even), ``M`` the inverse of the node's turn and stretch; the
+        TI is padded for the widest turned lag. The neighbours themselves are still the nearest
+        informed grid nodes.
         """
-        variables, params, tpl, ti = self._prepare()
-        names = [x.name for x in variables]
-        grid_shape = v.shape3(shape, "shape", owner=f"{_OWNER}.simulate")
-        # per cell: one float32 per variable, the source index, path and done flag
-        v.grid_memory(grid_shape, 4 * len(variables) + 24, owner=f"{_OWNER}.simulate")
-        flat = len(tuple(shape)) == 2
-        aux_names = params["auxiliary"]
-        owner = f"{_OWNER}.simulate"
-        single = not isinstance(self.training_image, Mapping)
-        hard_map = _hard_mapping(hard, names, single, aux_names, owner)
-        aux_map = _auxiliary_mapping(auxiliary, aux_names, owner)
-        state = []
-        for var in variables:
-            if var.name in aux_names:
-                a = _grid_array(aux_map[var.name], f"auxiliary[{var.name!r}]", grid_shape, owner)
-                known = _known(a, var.kind)
-                if not known.all():
-                    raise v.fail(
-                        f"auxiliary[{var.name!r}]",
-                        "informed at every grid node (an auxiliary variable is never simulated)",
-                        f"{int((~known).sum())} unknown nodes",
-                        owner,
-                    )
-                state.append(_normalise(a, var, f"auxiliary[{var.name!r}]", owner))
-            elif var.name in hard_map:
-                a = _grid_array(hard_map[var.name], _hard_name(var.name, single), grid_shape, owner)
-                state.append(_normalise(a, var, _hard_name(var.name, single), owner))
-            else:
-                state.append(np.full(grid_shape, np.nan, dtype=np.float32))
-        weights = params["weights"] or {}
-        w = [float(weights.get(n, 1.0)) for n in names]
-        th = v.threads(threads, owner=owner)
-        sd = v.seed(seed, owner=owner)
-        pth = _Choice(_PATHS).check(path, "path", names)
-        if not isinstance(return_source, bool):
-            raise v.fail_type("return_source", "a bool", return_source, owner)
-        v.callback(progress, "progress", owner=owner)
-        _, source, stats = _core.direct_simulate(
-            ti,
-            grid_shape,
-            [np.ascontiguousarray(s, dtype=np.float32).ravel() for s in state],
-            [n in aux_names for n in names],
-            params["neighbors"],
-            params["accept_distance"],
-            params["scan_fraction"],
-            np.ascontiguousarray(tpl.offsets),
-            w,
-            params["lag_power"],
-            pth,
-            sd,
-            th,
-            _MAX_BATCH,
-            progress,
-        )
-        stats = dict(stats)
-        # CPU time of the workers, so that other load on the machine does not count.
-        busy = stats["cpu_seconds"] or stats["seconds"] * stats["threads"]
-        stats["ns_per_comparison"] = (
-            1e9 * busy / stats["comparisons"] if stats["comparisons"] else float("nan")
-        )
-        self.last_stats = stats
-        out_shape = grid_shape[1:] if flat else grid_shape
-        source = source.reshape(out_shape)
-        results = {}
-        for var in variables:
-            if var.name in aux_names:
-                continue
-            results[var.name] = _restore(var, source, hard_map.get(var.name), grid_shape).reshape(
-                out_shape
-            )
-        value = results[names[0]] if single else results
-        return (value, source) if return_source else value
+        return _run([self], None, shape, hard=hard, auxiliary=auxiliary, seed=seed, threads=threads,
+                    path=path, return_source=return_source, rotation=rotation, affinity=affinity,
+                    progress=progress, owner=f"{_OWNER}.simulate")
+
+
+def _simulate_zones(samplers: list[DirectSampler | None], zones: np.ndarray, shape: Any, **kwargs: Any) -> Any:
+    """Direct-sampler zones (see `strataloom.simulate_zones`): ``samplers[z]`` for zone index ``z``
+    (None where the zone map never uses it), ``zones`` the checked (nz, ny, nx) zone indices."""
+    present = [s for s in samplers if s is not None]
+    first = present[0]
+    kinds = [[(x.name, x.kind) for x in s._prepare()[0]] for s in present]
+    aux = [s._prepare()[1]["auxiliary"] for s in present]
+    single = [not isinstance(s.training_image, Mapping) for s in present]
+    if any(k != kinds[0] for k in kinds) or any(a != aux[0] for a in aux) or len(set(single)) != 1:
+        raise v.fail("engines", "direct samplers with the same variables, kinds and auxiliary variables",
+                     [k for k in kinds], "simulate_zones")
+    stand_in = [s if s is not None else first for s in samplers]
+    return _run(stand_in, zones, shape, owner="simulate_zones", **kwargs)
+
+
+def _run(samplers: list[DirectSampler], zones: np.ndarray | None, shape: Any, *, hard: Any = None,
+         auxiliary: Any = None, seed: int = 0, threads: int | None = None, path: str = "random",
+         return_source: bool = False, rotation: Any = None, affinity: Any = None, progress: Any = None,
+         owner: str) -> Any:
+    """Check the simulation arguments once and run the core (zones: (nz, ny, nx) indices into samplers)."""
+    prepared = [s._prepare() for s in samplers]
+    variables, params, _, _ = prepared[0]
+    names = [x.name for x in variables]
+    grid_shape = v.shape3(shape, "shape", owner=owner)
+    # per cell: one float32 per variable, the source index, path and done flag
+    v.grid_memory(grid_shape, 4 * len(variables) + 24, owner=owner)
+    flat = len(tuple(shape)) == 2
+    aux_names = params["auxiliary"]
+    single = not isinstance(samplers[0].training_image, Mapping)
+    hard_map = _hard_mapping(hard, names, single, aux_names, owner)
+    aux_map = _auxiliary_mapping(auxiliary, aux_names, owner)
+    used = sorted({id(s) for s in samplers})
+    scale = None
+    if len(used) > 1:  # one set of units for all zones: each continuous variable's range over all TIs
+        scale = tuple(_common_scale([p[0][i] for p in prepared]) for i in range(len(names)))
+        variables = [dataclasses.replace(x, low=scale[i][0], span=scale[i][1]) for i, x in enumerate(variables)]
+    state = []
+    for var in variables:
+        if var.name in aux_names:
+            a = _grid_array(aux_map[var.name], f"auxiliary[{var.name!r}]", grid_shape, owner)
+            known = _known(a, var.kind)
+            if not known.all():
+                raise v.fail(
+                    f"auxiliary[{var.name!r}]",
+                    "informed at every grid node (an auxiliary variable is never simulated)",
+                    f"{int((~known).sum())} unknown nodes",
+                    owner,
+                )
+            state.append(_normalise(a, var, f"auxiliary[{var.name!r}]", owner))
+        elif var.name in hard_map:
+            a = _grid_array(hard_map[var.name], _hard_name(var.name, single), grid_shape, owner)
+            state.append(_normalise(a, var, _hard_name(var.name, single), owner))
+        else:
+            state.append(np.full(grid_shape, np.nan, dtype=np.float32))
+    th = v.threads(threads, owner=owner)
+    sd = v.seed(seed, owner=owner)
+    pth = _Choice(_PATHS).check(path, "path", names)
+    if not isinstance(return_source, bool):
+        raise v.fail_type("return_source", "a bool", return_source, owner)
+    v.callback(progress, "progress", owner=owner)
+    matrices, classes = _geometry(rotation, affinity, grid_shape, samplers, owner)
+    tis, zone_params = [], []
+    for s, (_, p, t, _) in zip(samplers, prepared, strict=True):
+        reach = np.asarray(t.reach)
+        if matrices is not None:
+            turned = np.floor(np.abs(matrices) @ reach.astype(np.float64) + 0.5).max(axis=0).astype(np.int64)
+            reach = np.maximum(reach, turned)
+            if reach.max() > 4096:
+                raise v.fail("affinity", "factors that keep the turned search window within 4096 cells",
+                             affinity, owner)
+        tis.append(s._image(tuple(int(r) for r in reach), scale))
+        weights = p["weights"] or {}
+        zone_params.append((p["neighbors"], p["accept_distance"], p["scan_fraction"],
+                            np.ascontiguousarray(t.offsets), [float(weights.get(n, 1.0)) for n in names],
+                            p["lag_power"]))
+    zone_flat = None if zones is None else np.ascontiguousarray(zones, dtype=np.int32).ravel()
+    _, source, stats = _core.direct_simulate(
+        tis,
+        grid_shape,
+        [np.ascontiguousarray(s, dtype=np.float32).ravel() for s in state],
+        [n in aux_names for n in names],
+        zone_params,
+        zone_flat,
+        None if matrices is None else np.ascontiguousarray(matrices.reshape(-1, 9)),
+        classes,
+        pth,
+        sd,
+        th,
+        _MAX_BATCH,
+        progress,
+    )
+    stats = dict(stats)
+    # CPU time of the workers, so that other load on the machine does not count.
+    busy = stats["cpu_seconds"] or stats["seconds"] * stats["threads"]
+    stats["ns_per_comparison"] = (
+        1e9 * busy / stats["comparisons"] if stats["comparisons"] else float("nan")
+    )
+    for s in samplers:
+        s.last_stats = stats
+    out_shape = grid_shape[1:] if flat else grid_shape
+    source = source.reshape(out_shape)
+    results = {}
+    for i, var in enumerate(variables):
+        if var.name in aux_names:
+            continue
+        originals = [p[0][i].original for p in prepared]
+        results[var.name] = _restore(var, originals, zone_flat, source, hard_map.get(var.name),
+                                     grid_shape).reshape(out_shape)
+    value = results[names[0]] if single else results
+    return (value, source) if return_source else value
+
+
+def _common_scale(variables: list[_Variable]) -> tuple[float, float]:
+    """(low, span) of one variable over the training images of all zones."""
+    if variables[0].kind == "categorical":
+        return (0.0, 1.0)
+    lows = [float(np.nanmin(x.original)) for x in variables]
+    highs = [float(np.nanmax(x.original)) for x in variables]
+    low, high = min(lows), max(highs)
+    return (low, high - low if high > low else 1.0)
+
+
+def _geometry(rotation: Any, affinity: Any, shape: tuple[int, int, int], samplers: list[DirectSampler],
+              owner: str) -> tuple[np.ndarray | None, np.ndarray | None]:
+    """Grid-to-TI lag matrices per class ((k, 3, 3)) and the class of every cell (int32), or Nones."""
+    geo = local_geometry(rotation, affinity, shape, owner)
+    if geo is None:
+        return None, None
+    if geo.has_dip and any(s._prepare()[3].shape[0] == 1 for s in samplers):
+        raise v.fail("rotation", "no dip with a 2-D training image (a flat image cannot be tipped); "
+                     "give a 3-D training image or an azimuth alone", rotation, owner)
+    cells = shape[0] * shape[1] * shape[2]
+    if geo.constant:
+        rows = geo.rows(1)
+        classes = np.zeros(cells, dtype=np.int32)
+    else:
+        rows, inverse = np.unique(geo.rows(cells), axis=0, return_inverse=True)
+        classes = np.ascontiguousarray(inverse.reshape(-1), dtype=np.int32)
+    return grid_to_ti(rows), classes
 
 
 # --- helpers ---
@@ -615,25 +724,37 @@ def _normalise(a: np.ndarray, var: _Variable, name: str, owner: str) -> np.ndarr
 
 
 def _restore(
-    var: _Variable, source: np.ndarray, hard: Any, shape: tuple[int, int, int]
+    var: _Variable,
+    originals: list[np.ndarray],
+    zones: np.ndarray | None,
+    source: np.ndarray,
+    hard: Any,
+    shape: tuple[int, int, int],
 ) -> np.ndarray:
-    """Values in the TI's own units: hard data as given, simulated nodes copied from the TI."""
+    """Values in the TI's own units: hard data as given, simulated nodes copied from the TI of
+    their zone (``originals[z]``, the flat TI values of zone index ``z``)."""
     src = source.ravel()
     copied = src >= 0
+    dtype = np.result_type(*[o.dtype for o in originals])
     if var.kind == "categorical":
-        out = np.full(src.shape, -1, dtype=var.original.dtype)
+        out = np.full(src.shape, -1, dtype=dtype)
         if hard is not None:
             h = np.asarray(hard, dtype=np.float64).ravel()
             known = (h >= 0) & ~np.isnan(h)
             out[known] = h[known].astype(out.dtype)
     else:
-        out = np.full(src.shape, np.nan, dtype=var.original.dtype)
+        out = np.full(src.shape, np.nan, dtype=dtype)
         if hard is not None:
             h = np.asarray(hard, dtype=np.float64).ravel()
             known = ~np.isnan(h)
             out[known] = h[known]
     fill = copied & _unknown_before(out, var.kind)
-    out[fill] = var.original[src[fill]]
+    if zones is None:
+        out[fill] = originals[0][src[fill]]
+    else:
+        for z, original in enumerate(originals):
+            here = fill & (zones == z)
+            out[here] = original[src[here]]
     return out.reshape(shape)
 
 

@@ -18,7 +18,7 @@ import numpy as np
 
 from .errors import StudyError
 
-__all__ = ["EngineAdapter", "EngineFactory", "engine_class", "validate_parameters"]
+__all__ = ["EngineAdapter", "EngineFactory", "constructor_parameters", "engine_class", "validate_parameters"]
 
 
 class EngineAdapter(Protocol):
@@ -85,9 +85,31 @@ def _accepted(name: str) -> set[str]:
                 "seed",
                 "progress",
                 "return_source",
+                "rotation",
+                "affinity",
             ):
                 out.add(p.name)
     return out
+
+
+def constructor_parameters(name: str) -> set[str]:
+    """Study parameters that belong to the engine itself (its constructor), not to simulate()."""
+    cls = engine_class(name)
+    known = {k for k in _KNOWN[name] if k != "threads"}
+    if cls is None:
+        return known
+    try:
+        sig = inspect.signature(cls.__init__)
+    except (TypeError, ValueError):
+        return known
+    return known | {
+        p.name for p in sig.parameters.values()
+        if p.kind in (p.KEYWORD_ONLY, p.POSITIONAL_OR_KEYWORD) and p.name not in ("self", "training_image")
+    }
+
+
+#: Keywords of simulate() that the study sets elsewhere ([geometry]).
+_ELSEWHERE = {"rotation": "[geometry] azimuth and dip", "affinity": "[geometry] affinity"}
 
 
 def validate_parameters(name: str, params: Mapping[str, Any]) -> dict[str, Any]:
@@ -99,6 +121,8 @@ def validate_parameters(name: str, params: Mapping[str, Any]) -> dict[str, Any]:
     accepted = _accepted(name)
     out: dict[str, Any] = {}
     for k, val in params.items():
+        if k in _ELSEWHERE:
+            raise _ParamError((k,), f"is set in the study's {_ELSEWHERE[k]}, not among the engine parameters.")
         if k not in accepted:
             raise _ParamError(
                 (k,),
@@ -188,6 +212,11 @@ class EngineFactory:
         ``(K, nz, ny, nx)`` probabilities (pattern tree) or an auxiliary cube (direct sampler).
     threads : int or None
         Threads inside one realization (None: the engine's default).
+    rotation, affinity : constants or maps, optional
+        Local geometry, passed to the engine's simulate (see `strataloom.geometry`).
+    zones : (nz, ny, nx) array of int, optional
+        Zone code of every cell; then ``zone_engines`` gives, per code, ``(code, training image,
+        parameter overrides)`` and the run goes through `strataloom.simulate_zones`.
     """
 
     name: str
@@ -199,6 +228,10 @@ class EngineFactory:
     hard: np.ndarray | None = None
     soft: np.ndarray | None = None
     threads: int | None = None
+    rotation: Any = None
+    affinity: Any = None
+    zones: np.ndarray | None = None
+    zone_engines: tuple[tuple[int, np.ndarray, dict[str, Any]], ...] = ()
     token: str = field(init=False, default="")
 
     def __post_init__(self) -> None:
@@ -212,6 +245,10 @@ class EngineFactory:
             self.hard,
             self.soft,
             self.threads,
+            *_geometry_parts(self.rotation),
+            *_geometry_parts(self.affinity),
+            self.zones,
+            *[p for code, ti, params in self.zone_engines for p in (code, ti, sorted(params.items()))],
         )
 
     def __call__(self) -> EngineAdapter:
@@ -239,17 +276,42 @@ def _split(cls: Any, params: dict[str, Any]) -> tuple[dict[str, Any], dict[str, 
     return init, call
 
 
+def _geometry_parts(x: Any) -> list[Any]:
+    """Hashable pieces of a rotation or affinity value (arrays kept whole for the digest)."""
+    if isinstance(x, tuple):
+        return [np.asarray(p) if isinstance(p, np.ndarray) else p for p in x]
+    return [x]
+
+
+def _build(cls: Any, ti: np.ndarray, init: dict[str, Any]) -> Any:
+    init = dict(init)
+    if "template" in init:
+        init["template"] = _make_template(init["template"])
+    return cls(ti, **init)
+
+
 class _Adapter:
-    """One engine built once from a factory; `simulate(seed)` gives {variable: realization}."""
+    """One engine built once from a factory (one per zone with zones); `simulate(seed)` gives
+    {variable: realization}."""
 
     #: Data of the factory the engine's simulate() takes besides hard data.
     extra: tuple[str, ...] = ()
 
     def __init__(self, cls: Any, f: EngineFactory, params: dict[str, Any], threads: Any) -> None:
         init, self._call = _split(cls, params)
-        if "template" in init:
-            init["template"] = _make_template(init["template"])
-        self._engine = cls(f.training_image, **init)
+        self._zones: dict[int, Any] | None = None
+        if f.zones is None:
+            self._engine = _build(cls, f.training_image, init)
+        else:
+            self._zones = {}
+            shared = None  # zones with the study's TI and no overrides share one engine
+            for code, ti, own in f.zone_engines:
+                if ti is f.training_image and not own:
+                    shared = shared if shared is not None else _build(cls, ti, init)
+                    self._zones[code] = shared
+                else:
+                    self._zones[code] = _build(cls, ti, {**init, **own})
+            self._engine = next(iter(self._zones.values()))
         self._f = f
         self._threads = threads
         self.variables = (f.variable,)
@@ -257,9 +319,19 @@ class _Adapter:
     def simulate(self, seed: int, progress: Any = None) -> dict[str, np.ndarray]:
         f = self._f
         data = {name: getattr(f, name) for name in self.extra}
-        out = self._engine.simulate(
-            f.shape, hard=f.hard, seed=seed, threads=self._threads, progress=progress, **data, **self._call
-        )
+        geometry = {k: x for k, x in (("rotation", f.rotation), ("affinity", f.affinity)) if x is not None}
+        if self._zones is not None:
+            from .zones import simulate_zones
+
+            out = simulate_zones(
+                self._zones, f.zones, f.shape, hard=f.hard, seed=seed, threads=self._threads,
+                progress=progress, **geometry, **data, **self._call,
+            )
+        else:
+            out = self._engine.simulate(
+                f.shape, hard=f.hard, seed=seed, threads=self._threads, progress=progress, **geometry, **data,
+                **self._call,
+            )
         return {f.variable: np.asarray(out)}
 
 

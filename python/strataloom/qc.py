@@ -9,7 +9,8 @@ with the TI's own value: indicator variograms along the axes (computed with FFTs
 small multiple-point patterns compared by the Jensen–Shannon divergence (with the divergence between
 the two halves of the TI as the achievable baseline), and connectivity functions. A two-point
 baseline (truncated Gaussian fields with the same proportions and a fitted variogram) can be drawn
-beside them: the same variogram does not mean the same connectivity.
+beside them: the same variogram does not mean the same connectivity. When a run asked for a
+rotation, the local orientation of the realizations (structure tensor) is compared with it.
 """
 
 from __future__ import annotations
@@ -36,6 +37,8 @@ __all__ = [
     "indicator_variograms",
     "js_divergence",
     "k_medoids",
+    "local_azimuth",
+    "orientation_gap",
     "pattern_divergence",
     "pattern_histogram",
     "representative_by_measure",
@@ -575,6 +578,80 @@ def k_medoids(distances: Any, k: int) -> tuple[np.ndarray, np.ndarray]:
     return medoids, np.argmin(d[medoids], axis=0)
 
 
+# ----------------------------------------------------------------------------- local orientation
+def local_azimuth(field_: Any, sigma: float = 1.0, window: float = 4.0) -> tuple[np.ndarray, np.ndarray]:
+    """Horizontal orientation of the structures at every cell, from the structure tensor.
+
+    The gradient tensor ``J = G_window * (grad f grad f^T)`` of each z-layer (Sobel gradients of
+    the layer smoothed by ``sigma``, products smoothed by ``window``; scipy.ndimage) has its
+    dominant eigenvector across the structures; the structures run along the other one (Bigün &
+    Granlund 1987, "Optimal orientation detection of linear symmetry", ICCV).
+
+    Parameters
+    ----------
+    field_ : (ny, nx) or (nz, ny, nx) array
+        Values (for facies: an indicator or the codes).
+    sigma : float, default 1.0
+        Gaussian smoothing (cells) of the field before the gradients.
+    window : float, default 4.0
+        Gaussian window (cells) of the tensor: the scale of "local".
+
+    Returns
+    -------
+    azimuth : ndarray of float, shaped like the input
+        Degrees in [0, 180), clockwise from +y toward +x, along the structures.
+    coherence : ndarray of float
+        ``(l1 - l2) / (l1 + l2)`` in [0, 1]: 0 for no preferred direction, 1 for straight bands.
+    """
+    from scipy import ndimage
+
+    a = np.asarray(field_, dtype=np.float64)
+    flat = a.ndim == 2
+    a3 = v.as_volume(a, "field_", owner="local_azimuth")
+    s = v.real(sigma, "sigma", low=0.0, owner="local_azimuth")
+    w = v.real(window, "window", low=0.0, low_open=True, owner="local_azimuth")
+    f = ndimage.gaussian_filter(a3, (0, s, s)) if s > 0 else a3
+    gy = ndimage.sobel(f, axis=1)
+    gx = ndimage.sobel(f, axis=2)
+    jxx = ndimage.gaussian_filter(gx * gx, (0, w, w))
+    jyy = ndimage.gaussian_filter(gy * gy, (0, w, w))
+    jxy = ndimage.gaussian_filter(gx * gy, (0, w, w))
+    # Dominant gradient direction phi (from +x toward +y); the structures run at phi + 90 degrees,
+    # whose azimuth clockwise from +y is -phi.
+    phi = 0.5 * np.arctan2(2 * jxy, jxx - jyy)
+    azimuth = np.degrees(-phi) % 180.0
+    trace = jxx + jyy
+    with np.errstate(invalid="ignore", divide="ignore"):
+        coherence = np.where(trace > 1e-12, np.sqrt((jxx - jyy) ** 2 + 4 * jxy**2) / trace, 0.0)
+    if flat:
+        return azimuth[0], coherence[0]
+    return azimuth, coherence
+
+
+def orientation_gap(measured: Any, requested: Any, weights: Any = None) -> float:
+    """Mean angle (degrees, in [0, 90]) between measured and requested axial directions.
+
+    Directions are axial (``a`` and ``a + 180`` are one direction), so each gap is
+    ``min(|a - b| mod 180, 180 - |a - b| mod 180)``; ``weights`` (e.g. the coherence of
+    `local_azimuth`) weigh the cells.
+    """
+    a = np.asarray(measured, dtype=np.float64)
+    b = np.broadcast_to(np.asarray(requested, dtype=np.float64), a.shape)
+    d = np.abs(a - b) % 180.0
+    d = np.minimum(d, 180.0 - d)
+    if weights is None:
+        return float(d.mean())
+    wt = np.broadcast_to(np.asarray(weights, dtype=np.float64), a.shape)
+    total = wt.sum()
+    return float((d * wt).sum() / total) if total > 0 else float("nan")
+
+
+def _mean_axis(azimuth: np.ndarray, weights: np.ndarray) -> float:
+    """Weighted mean of axial directions (doubled angles), degrees in [0, 180)."""
+    t = np.radians(2 * azimuth)
+    return float(np.degrees(np.arctan2((weights * np.sin(t)).sum(), (weights * np.cos(t)).sum())) / 2 % 180)
+
+
 # ----------------------------------------------------------------------------- whole-run QC
 @dataclass
 class QCResult:
@@ -608,6 +685,7 @@ class QCResult:
     by_measure: dict[str, int] | None = None
     medoids: list[int] | None = None
     medoid_members: list[int] | None = None
+    orientation: dict[str, Any] | None = None
     verdicts: list[dict[str, Any]] = field(default_factory=list)
 
     def verdict(self, name: str, verdict: str, value: str, rule: str) -> None:
@@ -661,6 +739,7 @@ def check_run(
     representatives: int = 3,
     sample_cells: int = 20000,
     seed: int = 0,
+    azimuth: Any = None,
     progress: Any = None,
 ) -> QCResult:
     """Run every QC check on a categorical variable of a run, streaming over the realizations.
@@ -704,6 +783,11 @@ def check_run(
         cells).
     seed : int
         Seed of the cell sample and of the baseline fields.
+    azimuth : float or array of the grid's shape, optional
+        The rotation asked of the engine (degrees); default the run folder's ``azimuth.npy``
+        when the study asked for one. The local orientation of the facies (`local_azimuth`) is
+        then compared with the TI's own mean orientation turned by it (the TI's taken as 0 without
+        ``ti``).
     progress : callable, optional
         ``progress(done, total)`` after each realization.
     """
@@ -776,6 +860,17 @@ def check_run(
             )
         res.target = t
 
+    if azimuth is None and (r.path / "azimuth.npy").is_file():
+        azimuth = np.load(r.path / "azimuth.npy", allow_pickle=False)
+    expected = None
+    if azimuth is not None:
+        req = np.asarray(azimuth, dtype=np.float64)
+        if req.ndim == 2:
+            req = req[np.newaxis]
+        if (req.ndim != 0 and req.shape != shape) or not np.isfinite(req).all():
+            raise v.fail("azimuth", f"finite degrees, a number or a map of the grid's shape {shape}",
+                         f"shape {req.shape}", "check_run")
+        expected = req
     n = int(r.completed.size)
     acc = CategoricalSummary(codes, shape) if soft is not None else None
     props = np.zeros((n, len(codes)))
@@ -819,6 +914,20 @@ def check_run(
         else:
             measure[j] = props[j, codes.index(fac)]
         samples[j] = real.reshape(-1)[sample]
+        if expected is not None:
+            if j == 0:
+                ti_axis = 0.0
+                if tia is not None:
+                    ti_az, ti_coh = local_azimuth((tia == fac).astype(np.float64))
+                    ti_axis = _mean_axis(ti_az, ti_coh)
+                expected = (expected + ti_axis) % 180.0
+                gaps = np.zeros(n)
+                doubled = np.zeros((2, *shape))
+                res.orientation = {"ti_azimuth": ti_axis}
+            az, coh = local_azimuth((real == fac).astype(np.float64))
+            gaps[j] = orientation_gap(az, expected, coh)
+            doubled[0] += coh * np.cos(np.radians(2 * az))
+            doubled[1] += coh * np.sin(np.radians(2 * az))
         if progress is not None:
             progress(j + 1, n)
     res.facies = int(fac)  # type: ignore[arg-type]
@@ -834,6 +943,25 @@ def check_run(
         else f"proportion of {res.names[codes.index(res.facies)]}"
     )
 
+    # -- local orientation
+    if res.orientation is not None:
+        mid = shape[0] // 2
+        res.orientation.update(
+            gap=gaps,
+            requested=np.broadcast_to(expected, shape)[mid].copy(),
+            measured=(np.degrees(np.arctan2(doubled[1, mid], doubled[0, mid])) / 2) % 180.0,
+            strength=np.hypot(doubled[0, mid], doubled[1, mid]) / n,
+            layer=mid,
+        )
+        med = float(np.median(gaps))
+        res.verdict(
+            "Local orientation against the requested rotation",
+            _grade(med, 10.0, 20.0, False),
+            f"median over realizations of the mean angle between the structures of "
+            f"{res.names[codes.index(res.facies)]} and the requested direction {med:.1f} degrees",
+            "structure tensor, cells weighted by coherence; pass ≤ 10, check ≤ 20 degrees "
+            "(project's thresholds)",
+        )
     # -- hard data
     if hard_cells is not None:
         share = matched / checked if checked else float("nan")

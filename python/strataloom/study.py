@@ -15,6 +15,9 @@ The schema (all keys are ours)::
     [soft_data]        variable, probabilities = "p.npy"  or  attributes = [...], patch,
                        components, smoothing, regularization, segy = {axes, z_downward}
     [engine]           name = "pattern_tree" | "direct_sampler", variable, [engine.parameters]
+    [geometry]         azimuth, dip (degrees or .npy maps), affinity ([fz, fy, fx], a number or
+                       a .npy (3, nz, ny, nx) map)
+    [zones]            map = "zones.npy", [[zones.zone]] code, training_image, parameters
     [ensemble]         realizations, seed, processes
     [output]           hard_data, soft_data, summary, report
 """
@@ -41,12 +44,15 @@ __all__ = [
     "Category",
     "EngineSpec",
     "EnsembleSpec",
+    "GeometrySpec",
     "OutputSpec",
     "SoftDataSpec",
     "Study",
     "TrainingImageSpec",
     "Variable",
     "WellSpec",
+    "ZoneSpec",
+    "ZonesSpec",
     "load_study",
 ]
 
@@ -224,6 +230,36 @@ class EngineSpec:
 
 
 @dataclass(frozen=True)
+class GeometrySpec:
+    """Local rotation and affinity: constants, or ``.npy`` maps on the grid."""
+
+    azimuth: float | Path = 0.0
+    dip: float | Path = 0.0
+    affinity: tuple[float, float, float] | Path = (1.0, 1.0, 1.0)
+
+    def files(self) -> list[Path]:
+        """The map files named."""
+        return [x for x in (self.azimuth, self.dip, self.affinity) if isinstance(x, Path)]
+
+
+@dataclass(frozen=True)
+class ZoneSpec:
+    """One zone: its code, its training image (None: the study's) and engine-parameter overrides."""
+
+    code: int
+    training_image: Path | None = None
+    parameters: dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class ZonesSpec:
+    """Regions: an integer zone map on the grid and one entry per zone code."""
+
+    map: Path
+    zones: tuple[ZoneSpec, ...]
+
+
+@dataclass(frozen=True)
 class EnsembleSpec:
     """Ensemble size, master seed, default process count (0 = all cores)."""
 
@@ -374,6 +410,8 @@ class Study:
     engine: EngineSpec
     ensemble: EnsembleSpec
     output: OutputSpec
+    geometry: GeometrySpec | None = None
+    zones: ZonesSpec | None = None
 
     @property
     def folder(self) -> Path:
@@ -397,6 +435,11 @@ class Study:
             if self.soft_data.probabilities is not None:
                 files.append(self.soft_data.probabilities)
             files.extend(self.soft_data.attributes)
+        if self.geometry is not None:
+            files.extend(self.geometry.files())
+        if self.zones is not None:
+            files.append(self.zones.map)
+            files.extend(z.training_image for z in self.zones.zones if z.training_image is not None)
         return files
 
     def input_hashes(self) -> dict[str, str]:
@@ -425,7 +468,7 @@ class Study:
                 "regularization": s.regularization,
                 "segy": {"axes": list(s.segy_axes), "z_downward": s.segy_z_downward},
             }
-        return {
+        out = {
             "name": self.name,
             "description": self.description,
             "grid": {
@@ -471,6 +514,22 @@ class Study:
             },
             "output": asdict(self.output),
         }
+        if self.geometry is not None:
+            g = self.geometry
+            out["geometry"] = {
+                k: rel(x) if isinstance(x, Path) else (list(x) if isinstance(x, tuple) else x)
+                for k, x in (("azimuth", g.azimuth), ("dip", g.dip), ("affinity", g.affinity))
+            }
+        if self.zones is not None:
+            out["zones"] = {
+                "map": rel(self.zones.map),
+                "zone": [
+                    {"code": z.code, "training_image": rel(z.training_image),
+                     "parameters": _jsonable(z.parameters)}
+                    for z in self.zones.zones
+                ],
+            }
+        return out
 
 
 def _jsonable(x: Any) -> Any:
@@ -496,6 +555,8 @@ _TOP = {
     "wells": False,
     "soft_data": False,
     "engine": True,
+    "geometry": False,
+    "zones": False,
     "ensemble": True,
     "output": False,
 }
@@ -621,6 +682,8 @@ def load_study(path: str | Path) -> Study:
             "of the study schema yet.",
         )
     engine = EngineSpec(ename, evar, params)
+    geometry = _geometry(r, data["geometry"], folder, grid) if "geometry" in data else None
+    zones = _zones(r, data["zones"], folder, ename) if "zones" in data else None
 
     en = r.table(
         data["ensemble"], ("ensemble",), {"realizations": True, "seed": True, "processes": False}
@@ -633,7 +696,73 @@ def load_study(path: str | Path) -> Study:
 
     o = r.table(data.get("output", {}), ("output",), {k: False for k in asdict(OutputSpec())})
     output = OutputSpec(**{k: r.boolean(v, ("output", k)) for k, v in o.items()})
-    return Study(p, name, description, grid, variables, ti, wells, soft, engine, ensemble, output)
+    return Study(
+        p, name, description, grid, variables, ti, wells, soft, engine, ensemble, output, geometry, zones
+    )
+
+
+def _map_or_number(r: _Reader, value: Any, key: tuple, folder: Path) -> float | Path:
+    if isinstance(value, str):
+        return r.file(value, key, folder, (".npy",))
+    return r.number(value, key)
+
+
+def _geometry(r: _Reader, raw: Any, folder: Path, grid: Grid) -> GeometrySpec:
+    key = ("geometry",)
+    g = r.table(raw, key, {"azimuth": False, "dip": False, "affinity": False})
+    azimuth = _map_or_number(r, g.get("azimuth", 0.0), (*key, "azimuth"), folder)
+    dip = _map_or_number(r, g.get("dip", 0.0), (*key, "dip"), folder)
+    if grid.shape[0] == 1 and dip != 0.0:
+        raise r.error((*key, "dip"), "needs a 3-D grid (nz > 1); a 2-D grid takes an azimuth alone.")
+    raw_aff = g.get("affinity", [1.0, 1.0, 1.0])
+    affinity: tuple[float, float, float] | Path
+    if isinstance(raw_aff, str):
+        affinity = r.file(raw_aff, (*key, "affinity"), folder, (".npy",))
+    else:
+        if not isinstance(raw_aff, list):
+            raw_aff = [raw_aff] * 3
+        affinity = r.triple(raw_aff, (*key, "affinity"), lambda x, k: r.number(x, k, positive=True))
+        if max(affinity) > 16:
+            raise r.error((*key, "affinity"), f"must hold factors in (0, 16]; got {list(affinity)}.")
+    return GeometrySpec(azimuth, dip, affinity)
+
+
+def _zones(r: _Reader, raw: Any, folder: Path, engine: str) -> ZonesSpec:
+    from .engines import constructor_parameters, validate_parameters
+
+    key = ("zones",)
+    z = r.table(raw, key, {"map": True, "zone": True})
+    zmap = r.file(z["map"], (*key, "map"), folder, (".npy",))
+    entries = z["zone"]
+    if not isinstance(entries, list) or not entries:
+        raise r.error((*key, "zone"), "must be an array of tables ([[zones.zone]] entries), one per zone code.")
+    out: list[ZoneSpec] = []
+    seen: set[int] = set()
+    own = constructor_parameters(engine)
+    for i, e in enumerate(entries):
+        ek = (*key, "zone", i)
+        e = r.table(e, ek, {"code": True, "training_image": False, "parameters": False})
+        code = r.integer(e["code"], (*ek, "code"), 0, 254)
+        if code in seen:
+            raise r.error((*ek, "code"), f"repeats zone code {code}; give each code once.")
+        seen.add(code)
+        ti = r.file(e["training_image"], (*ek, "training_image"), folder, (".npy",)) if "training_image" in e else None
+        params = e.get("parameters", {})
+        if not isinstance(params, dict):
+            raise r.error((*ek, "parameters"), f"must be a table; got {_shown(params)}.")
+        try:
+            params = validate_parameters(engine, params)
+        except (ValueError, TypeError) as err:
+            raise r.error((*ek, "parameters", *getattr(err, "key", ())), str(err)) from err
+        for k in params:
+            if k not in own:
+                raise r.error(
+                    (*ek, "parameters", k),
+                    "is an option of the simulation shared by all zones; set it in [engine.parameters] "
+                    f"(per zone: {', '.join(sorted(own))}).",
+                )
+        out.append(ZoneSpec(code, ti, params))
+    return ZonesSpec(zmap, tuple(out))
 
 
 def _variables(r: _Reader, raw: Any) -> dict[str, Variable]:

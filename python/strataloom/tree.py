@@ -10,16 +10,17 @@ proportions, and draws the category. Everything runs in the compiled core, off t
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Sequence
 from typing import Any
 
 import numpy as np
 
 from . import _core
 from . import _validate as v
+from .geometry import local_geometry, turn_matrix
 from .template import Template
 
-__all__ = ["GEOMETRY_STEP", "PatternTree", "simulate_zones", "turned_image"]
+__all__ = ["GEOMETRY_STEP", "PatternTree", "turned_image"]
 
 _OWNER = "PatternTree"
 #: Largest category code a training image may hold (codes are stored in one byte).
@@ -253,62 +254,21 @@ class PatternTree:
         return out
 
 
-def simulate_zones(trees: Any, zones: Any, shape: Any, *, hard: Any = None, soft: Any = None, tau: Any = None,
-                   target_proportions: Any = None, steering: float = 0.5, seed: int = 0,
-                   threads: int | None = None, max_conditioning: int | None = None, rotation: Any = None,
-                   affinity: Any = None, progress: Callable[[int, int], Any] | None = None) -> np.ndarray:
-    """Simulate one realization whose zones each follow their own training image.
-
-    Parameters
-    ----------
-    trees : sequence of PatternTree or mapping int -> PatternTree
-        The tree of each zone code. All must have the same number of categories (the largest
-        code + 1) and of levels; each keeps its own template and ``min_replicates``.
-    zones : (nz, ny, nx) or (ny, nx) array of int
-        Zone code of every cell. Nodes read their neighbours whatever their zone, so the
-        borders between zones see both sides' simulated values.
-    shape, hard, soft, tau, target_proportions, steering, seed, threads, max_conditioning,
-    rotation, affinity, progress
-        As for `PatternTree.simulate`; the tau model's prior is each zone's TI proportions
-        (or the target).
-
-    Returns
-    -------
-    ndarray of int16, shaped like ``shape``
-    """
-    owner = "simulate_zones"
-    if isinstance(trees, Mapping):
-        codes = list(trees)
-        if not codes or not all(isinstance(c, int) and 0 <= c <= 254 for c in codes):
-            raise v.fail("trees", "a mapping from zone codes 0..254 to PatternTree", codes, owner)
-        listed: list[Any] = [None] * (max(codes) + 1)
-        for c, t in trees.items():
-            listed[c] = t
-    elif isinstance(trees, Sequence) and not isinstance(trees, (str, bytes)):
-        listed = list(trees)
-    else:
-        raise v.fail_type("trees", "a sequence or mapping of PatternTree", trees, owner)
-    if not listed or not all(isinstance(t, PatternTree) for t in listed if t is not None) or listed[0] is None:
-        raise v.fail("trees", "PatternTree objects (zone 0 included)", listed, owner)
-    first = listed[0]
-    for t in listed:
-        if t is not None and (t.categories != first.categories or t._tree.levels != first._tree.levels):
-            raise v.fail("trees", "trees with the same number of categories and of levels",
-                         [(x.categories, x._tree.levels) for x in listed if x is not None], owner)
-    shp = v.shape3(shape, "shape", owner=owner)
-    z = np.asarray(zones)
-    if z.ndim == 2:
-        z = z[np.newaxis]
-    if z.shape != shp:
-        raise v.fail("zones", f"an array of the grid's shape {shp}", f"shape {np.asarray(zones).shape}", owner)
-    if not np.issubdtype(z.dtype, np.integer):
-        raise v.fail_type("zones", "an integer array of zone codes", z, owner)
-    used = np.unique(z)
-    missing = [int(c) for c in used if c < 0 or c >= len(listed) or listed[int(c)] is None]
-    if missing:
-        raise v.fail("zones", "codes that each have a PatternTree in `trees`", f"zone codes {missing}", owner)
-    stand_in = [t if t is not None else first for t in listed]
-    out, _ = _run(stand_in, np.asarray(z, dtype=np.int64), shape, hard=hard, soft=soft, tau=tau,
+def _simulate_zones(trees: list[PatternTree | None], zones: np.ndarray, shape: Any, *, hard: Any = None,
+                    soft: Any = None, tau: Any = None, target_proportions: Any = None, steering: float = 0.5,
+                    seed: int = 0, threads: int | None = None, max_conditioning: int | None = None,
+                    rotation: Any = None, affinity: Any = None, progress: Callable[[int, int], Any] | None = None,
+                    owner: str = "simulate_zones") -> np.ndarray:
+    """Pattern-tree zones (see `strataloom.simulate_zones`): ``trees[z]`` for zone index ``z``
+    (None where the zone map never uses it), ``zones`` the checked (nz, ny, nx) zone indices."""
+    present = [t for t in trees if t is not None]
+    first = present[0]
+    for t in present:
+        if t.categories != first.categories or t._tree.levels != first._tree.levels:
+            raise v.fail("engines", "pattern trees with the same number of categories and of levels",
+                         [(x.categories, x._tree.levels) for x in present], owner)
+    stand_in = [t if t is not None else first for t in trees]
+    out, _ = _run(stand_in, zones, shape, hard=hard, soft=soft, tau=tau,
                   target_proportions=target_proportions, steering=steering, seed=seed, threads=threads,
                   max_conditioning=max_conditioning, rotation=rotation, affinity=affinity, progress=progress,
                   owner=owner)
@@ -349,12 +309,10 @@ def _run(trees: list[PatternTree], zones: np.ndarray | None, shape: Any, *, hard
 def _geometry_classes(trees: list[PatternTree], zones: np.ndarray | None, rotation: Any, affinity: Any,
                       shape: tuple[int, int, int], owner: str) -> tuple[list[PatternTree], np.ndarray | None]:
     """One tree per (zone, rotation class, affinity class) present, and the class of every cell."""
-    if rotation is None and affinity is None:
+    geo = local_geometry(rotation, affinity, shape, owner)
+    if geo is None:
         return trees, zones
-    azimuth, dip = _rotation(rotation, shape, owner)
-    aff = _affinity(affinity, shape, owner)
-    if shape[0] == 1 and np.any(dip != 0):
-        raise v.fail("rotation", "an azimuth alone for a 2-D grid (dip needs a 3-D grid)", rotation, owner)
+    azimuth, dip, aff = geo.azimuth, geo.dip, geo.affinity
     n = shape[0] * shape[1] * shape[2]
     keys = np.empty((n, 6), dtype=np.int64)
     keys[:, 0] = 0 if zones is None else zones.ravel()
@@ -367,6 +325,9 @@ def _geometry_classes(trees: list[PatternTree], zones: np.ndarray | None, rotati
                      f"{len(classes)} classes", owner)
     built = []
     for zone, az, dp, fz, fy, fx in classes.tolist():
+        if dp != 0 and trees[zone]._codes.shape[0] == 1:
+            raise v.fail("rotation", "no dip with a 2-D training image (a flat image cannot be tipped); "
+                         "give a 3-D training image or an azimuth alone", rotation, owner)
         key = (float(az * GEOMETRY_STEP), float(dp * GEOMETRY_STEP),
                tuple(float(2.0 ** (f * _AFFINITY_STEP)) for f in (fz, fy, fx)))
         built.append(trees[zone]._variant(key))
@@ -401,11 +362,7 @@ def turned_image(ti: Any, azimuth: float = 0.0, dip: float = 0.0, affinity: Any 
     if flat or a3.shape[0] == 1:
         f = np.array([1.0, f[1], f[2]])
         dip = 0.0
-    az, dp = np.radians(azimuth), np.radians(dip)
-    # (z, y, x) coordinates; x' = x cos + y sin, y' = -x sin + y cos (clockwise from +y), then dip.
-    rot_az = np.array([[1, 0, 0], [0, np.cos(az), -np.sin(az)], [0, np.sin(az), np.cos(az)]])
-    rot_dip = np.array([[np.cos(dp), -np.sin(dp), 0], [np.sin(dp), np.cos(dp), 0], [0, 0, 1]])
-    m = rot_dip @ rot_az @ np.diag(f)
+    m = turn_matrix(azimuth, dip, f)
     size = np.array(a3.shape, dtype=np.float64)
     corners = np.array([[z, y, x] for z in (0, size[0]) for y in (0, size[1]) for x in (0, size[2])]) - size / 2
     span = np.abs(corners @ m.T).max(axis=0) * 2
@@ -419,46 +376,6 @@ def turned_image(ti: Any, azimuth: float = 0.0, dip: float = 0.0, affinity: Any 
     out = ndimage.affine_transform(a3.astype(np.int16), inv, offset=offset, output_shape=out_shape, order=0,
                                    mode="constant", cval=-1)
     return out[0] if flat else out
-
-
-def _angle_map(value: Any, shape: tuple[int, int, int], owner: str) -> np.ndarray:
-    """Degrees: a 0-d array for a constant, else the flattened (nz, ny, nx) map."""
-    if np.isscalar(value):
-        return np.asarray(v.real(value, "rotation", owner=owner))
-    a = np.asarray(value, dtype=np.float64)
-    if a.ndim == 2:
-        a = a[np.newaxis]
-    if a.shape != shape or not np.isfinite(a).all():
-        raise v.fail("rotation", f"a number of degrees or a finite map of the grid's shape {shape}",
-                     f"shape {np.asarray(value).shape}", owner)
-    return a.ravel()
-
-
-def _rotation(rotation: Any, shape: tuple[int, int, int], owner: str) -> tuple[np.ndarray, np.ndarray]:
-    if rotation is None:
-        return np.asarray(0.0), np.asarray(0.0)
-    if isinstance(rotation, tuple) and len(rotation) == 2:
-        return _angle_map(rotation[0], shape, owner), _angle_map(rotation[1], shape, owner)
-    return _angle_map(rotation, shape, owner), np.asarray(0.0)
-
-
-def _affinity(affinity: Any, shape: tuple[int, int, int], owner: str) -> np.ndarray:
-    """Factors (z, y, x): shape (3,) for constants, else (cells, 3)."""
-    if affinity is None:
-        return np.ones(3)
-    a = np.asarray(affinity, dtype=np.float64)
-    if a.ndim == 0:
-        a = np.repeat(a, 3)
-    if a.shape == (3,):
-        flat = a
-    elif a.shape == (3, *shape) or (shape[0] == 1 and a.shape == (3, *shape[1:])):
-        flat = np.moveaxis(a.reshape(3, -1), 0, -1)
-    else:
-        raise v.fail("affinity", f"a factor, three factors (z, y, x) or an array of shape (3, {shape})",
-                     f"shape {a.shape}", owner)
-    if not np.isfinite(flat).all() or (flat <= 0).any() or (flat > 16).any():
-        raise v.fail("affinity", "factors in (0, 16]", f"values in [{flat.min():g}, {flat.max():g}]", owner)
-    return flat
 
 
 def _hard_codes(hard: Any, shape: tuple[int, int, int]) -> np.ndarray:

@@ -37,6 +37,10 @@ from .study import Study, _Reader, read_array
 
 __all__ = ["Prepared", "check_study", "prepare", "read_attribute", "run_study"]
 
+#: File of the run folder holding the requested azimuth per cell (degrees), when a study asks
+#: for a rotation.
+AZIMUTH_NAME = "azimuth.npy"
+
 
 @dataclass
 class Prepared:
@@ -49,6 +53,10 @@ class Prepared:
     soft: np.ndarray | None = None
     calibration: Calibration | None = None
     notes: list[str] = field(default_factory=list)
+    rotation: Any = None
+    affinity: Any = None
+    zones: np.ndarray | None = None
+    zone_engines: tuple[tuple[int, np.ndarray, dict[str, Any]], ...] = ()
 
     def factory(self, threads: int | None = None) -> EngineFactory:
         """The engine recipe for this study."""
@@ -70,6 +78,10 @@ class Prepared:
             hard,
             self.soft,
             threads,
+            self.rotation,
+            self.affinity,
+            self.zones,
+            self.zone_engines,
         )
 
 
@@ -112,9 +124,11 @@ def engine_error(study: Study, exc: BaseException) -> StudyError:
 
 
 def _process_bytes(prep: Prepared) -> int:
-    """Estimated memory of one worker process: the TI, the grid's working arrays, soft data."""
+    """Estimated memory of one worker process: the TIs, the grid's working arrays, soft data."""
     soft = 0 if prep.soft is None else prep.soft.nbytes
-    return int(prep.training_image.nbytes) + prep.study.grid.size * (8 + 4) + int(soft)
+    ti = prep.training_image
+    zones = sum(zti.nbytes for _, zti, _ in prep.zone_engines if zti is not ti)  # zone TIs
+    return int(ti.nbytes) + prep.study.grid.size * (8 + 4) + int(soft) + int(zones)
 
 
 def check_memory(study: Study, per_process: int, processes: int) -> None:
@@ -148,27 +162,94 @@ def read_training_image(study: Study) -> np.ndarray:
         ti = np.asarray(build_training_image(spec.builder, seed=spec.seed).facies)
     else:
         ti = read_array(spec.file, "training image")  # type: ignore[arg-type]
-    var = study.variables[spec.variable]
+    return _checked_ti(ti, study, spec.source.name, subset=False)
+
+
+def _checked_ti(ti: np.ndarray, study: Study, label: str, subset: bool) -> np.ndarray:
+    """A TI checked for the engine's variable: the facies table's codes (all of them, or with
+    ``subset`` some of them) or float values."""
+    var = study.variables[study.training_image.variable]
     if ti.ndim not in (2, 3) or ti.size == 0:
-        raise StudyError(
-            f"The training image '{spec.source.name}' must be a 2-D or 3-D array; got "
-            f"shape {ti.shape}."
-        )
+        raise StudyError(f"The training image '{label}' must be a 2-D or 3-D array; got shape {ti.shape}.")
     if var.kind == "categorical":
         if not np.issubdtype(ti.dtype, np.integer):
             raise StudyError(
-                f"The training image '{spec.source.name}' must hold integer facies codes "
+                f"The training image '{label}' must hold integer facies codes "
                 f"for '{var.name}'; got dtype {ti.dtype}."
             )
         present = sorted(int(c) for c in np.unique(ti[ti >= 0]))
-        if present != var.codes:
+        if (not subset and present != var.codes) or (subset and not set(present) <= set(var.codes)):
             raise StudyError(
-                f"The training image '{spec.source.name}' holds codes {present}, but the "
-                f"facies table of '{var.name}' has codes {var.codes}; they must match."
+                f"The training image '{label}' holds codes {present}, but the "
+                f"facies table of '{var.name}' has codes {var.codes}; "
+                + ("a zone's image may hold only those." if subset else "they must match.")
             )
     elif not np.issubdtype(ti.dtype, np.floating):
         ti = ti.astype(np.float64)
     return ti
+
+
+def _map(study: Study, path: Path, key: str, shape: tuple[int, ...], kind: str) -> np.ndarray:
+    """A map named by the study key ``key``, of ``shape``: finite floats or integers."""
+    a = read_array(path, f"'{key}' map")
+    if a.shape != shape and not (len(shape) == 3 and shape[0] == 1 and a.shape == shape[1:]):
+        raise StudyError(f"{study.path.name}: '{key}' map '{path.name}' has shape {a.shape}; expected {shape}.")
+    a = a.reshape(shape)
+    if kind == "int":
+        if not np.issubdtype(a.dtype, np.integer):
+            raise StudyError(f"{study.path.name}: '{key}' map '{path.name}' must hold integers; got {a.dtype}.")
+        return np.ascontiguousarray(a)
+    if not np.issubdtype(a.dtype, np.number) or not np.isfinite(a).all():
+        raise StudyError(f"{study.path.name}: '{key}' map '{path.name}' must hold finite numbers.")
+    return np.ascontiguousarray(a, dtype=np.float64)
+
+
+def read_geometry(study: Study) -> tuple[Any, Any]:
+    """(rotation, affinity) for the engine from the study's [geometry]: constants or maps."""
+    g = study.geometry
+    if g is None:
+        return None, None
+    shape = study.grid.shape
+    az = _map(study, g.azimuth, "geometry.azimuth", shape, "float") if isinstance(g.azimuth, Path) else g.azimuth
+    dip = _map(study, g.dip, "geometry.dip", shape, "float") if isinstance(g.dip, Path) else g.dip
+    if isinstance(g.affinity, Path):
+        aff = _map(study, g.affinity, "geometry.affinity", (3, *shape), "float")
+        if (aff <= 0).any() or (aff > 16).any():
+            raise StudyError(
+                f"{study.path.name}: 'geometry.affinity' map '{g.affinity.name}' must hold factors in (0, 16]; "
+                f"got values in [{aff.min():g}, {aff.max():g}]."
+            )
+    else:
+        aff = g.affinity
+    rotation = (az, dip) if isinstance(dip, np.ndarray) or dip != 0.0 else az
+    return rotation, aff
+
+
+def read_zones(study: Study, ti: np.ndarray) -> tuple[np.ndarray | None, tuple]:
+    """The zone map and, per zone code, (code, training image, parameter overrides)."""
+    z = study.zones
+    if z is None:
+        return None, ()
+    zones = _map(study, z.map, "zones.map", study.grid.shape, "int")
+    given = {e.code for e in z.zones}
+    missing = sorted(int(c) for c in np.unique(zones) if int(c) not in given)
+    if missing:
+        raise StudyError(
+            f"{study.path.name}: 'zones.map' map '{z.map.name}' uses zone codes {missing} that have no "
+            "[[zones.zone]] entry; add one per code."
+        )
+    engines = []
+    for e in z.zones:
+        zti = ti if e.training_image is None else _checked_ti(
+            read_array(e.training_image, "zone training image"), study, e.training_image.name, subset=True)
+        if study.engine.name == "pattern_tree" and int(zti.max()) != int(ti.max()):
+            raise StudyError(
+                f"The training image '{e.training_image.name if e.training_image else ''}' of zone {e.code} "
+                f"must hold the largest facies code {int(ti.max())} (pattern trees of all zones count the "
+                "same categories)."
+            )
+        engines.append((e.code, zti, dict(e.parameters)))
+    return zones, tuple(engines)
 
 
 def read_wells(study: Study) -> list[Well]:
@@ -260,6 +341,8 @@ def prepare(study: Study, *, calibrate_soft: bool = True) -> Prepared:
                 f"y {lo[1]:g}..{hi[1]:g}, z {lo[0]:g}..{hi[0]:g}."
             )
     prepared = Prepared(study, ti, wells, hard)
+    prepared.rotation, prepared.affinity = read_geometry(study)
+    prepared.zones, prepared.zone_engines = read_zones(study, ti)
     sd = study.soft_data
     if sd is not None:
         k = len(study.variables[sd.variable].categories)
@@ -410,6 +493,11 @@ def run_study(
     _atomic_save_npy(out_dir / "training_image.npy", np.asarray(prep.training_image))
     if study.output.hard_data and len(prep.hard.cells):
         prep.hard.save(out_dir / "hard_data.npz")
+    if prep.rotation is not None:
+        # The requested azimuth per cell, for the local-orientation QC of the report.
+        az = prep.rotation[0] if isinstance(prep.rotation, tuple) else prep.rotation
+        full = np.broadcast_to(np.asarray(az, dtype=np.float32), study.grid.shape)
+        _atomic_save_npy(out_dir / AZIMUTH_NAME, np.ascontiguousarray(full))
     if study.output.soft_data and prep.soft is not None:
         _atomic_save_npy(out_dir / "soft_data.npy", prep.soft.astype(np.float32))
     if prep.calibration is not None:
@@ -517,6 +605,7 @@ def check_study(
         lines.extend("soft data: " + s for s in prep.calibration.lines())
     elif prep.soft is not None:
         lines.append(f"soft data: {study.relative(study.soft_data.probabilities)}")  # type: ignore[union-attr]
+    lines.extend(_geometry_lines(study, prep))
     n = study.ensemble.realizations
     p = processes or study.ensemble.processes or os.cpu_count() or 1
     p = max(1, min(p, n))
@@ -552,6 +641,34 @@ def check_study(
     return lines
 
 
+def _geometry_lines(study: Study, prep: Prepared) -> list[str]:
+    """What `check` says about [geometry] and [zones]."""
+
+    def shown(x: Any, unit: str = "") -> str:
+        a = np.asarray(x, dtype=np.float64)
+        if a.ndim == 0:
+            return f"{float(a):g}{unit}"
+        if a.shape == (3,):
+            return "(" + ", ".join(f"{float(f):g}" for f in a) + ")"
+        return f"map {a.min():g}..{a.max():g}{unit}"
+
+    lines = []
+    if study.geometry is not None:
+        rot = prep.rotation
+        az, dip = rot if isinstance(rot, tuple) else (rot, 0.0)
+        lines.append(f"geometry: azimuth {shown(az, ' deg')}, dip {shown(dip, ' deg')}, "
+                     f"affinity (z, y, x) {shown(prep.affinity)}")
+    if prep.zones is not None:
+        codes, counts = np.unique(prep.zones, return_counts=True)
+        share = dict(zip(codes.tolist(), (counts / counts.sum()).tolist(), strict=True))
+        assert study.zones is not None
+        for e in study.zones.zones:
+            ti = study.relative(e.training_image) if e.training_image else "the study's training image"
+            extra = f", parameters {e.parameters}" if e.parameters else ""
+            lines.append(f"zone {e.code}: {share.get(e.code, 0.0):.2f} of the grid, {ti}{extra}")
+    return lines
+
+
 def _probe(prep: Prepared, base: int) -> tuple[float, int, float] | None:
     """(seconds per cell on one thread, engine bytes, engine build seconds), or None."""
     del base
@@ -567,6 +684,16 @@ def _probe(prep: Prepared, base: int) -> tuple[float, int, float] | None:
     soft = None
     if prep.soft is not None:
         soft = np.full((k, *sub), np.nan)
+    corner = tuple(slice(0, n) for n in sub)
+
+    def crop(x: Any) -> Any:
+        if isinstance(x, tuple):
+            return tuple(crop(p) for p in x)
+        if isinstance(x, np.ndarray) and x.ndim == 4:
+            return x[(slice(None), *corner)]
+        return x[corner] if isinstance(x, np.ndarray) and x.ndim == 3 else x
+
+    zones = None if prep.zones is None else crop(prep.zones)
     fac = EngineFactory(
         s.engine.name,
         var,
@@ -577,6 +704,10 @@ def _probe(prep: Prepared, base: int) -> tuple[float, int, float] | None:
         None,
         soft,
         1,
+        crop(prep.rotation),
+        crop(prep.affinity),
+        zones,
+        tuple(e for e in prep.zone_engines if zones is not None and e[0] in np.unique(zones)),
     )
     t0 = time.perf_counter()
     adapter = fac()

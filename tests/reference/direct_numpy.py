@@ -17,7 +17,9 @@ Rules (see cpp/direct/direct_sampler.hpp):
   the strided order (padded positions sorted by (position mod s, position div s), s one
   neighbourhood width along the fastest axis with a non-zero reach) with wrap-around; first
   candidate <= accept_distance, else the first best of the first ceil(scan_fraction * N); with
-  nothing usable there, the first usable candidate after it.
+  nothing usable there, the first usable candidate after it;
+* local geometry (optional): a node of class k compares its grid lag h with the TI lag
+  rint(M_k h) (half to even), the TI padded by ``ti_reach`` instead of the template's reach.
 """
 
 from __future__ import annotations
@@ -45,6 +47,9 @@ def simulate_reference(
     path: str = "random",
     lag_power: float = 0.0,
     chunk: int = 2048,
+    matrices: np.ndarray | None = None,
+    classes: np.ndarray | None = None,
+    ti_reach: tuple[int, int, int] | None = None,
 ) -> tuple[list[np.ndarray], np.ndarray]:
     """Direct sampling on normalised data.
 
@@ -65,7 +70,8 @@ def simulate_reference(
     gshape = state[0].shape
     st = [s.astype(np.float64).copy() for s in state]
     offsets = np.asarray(offsets, dtype=np.int64)
-    reach = np.abs(offsets).max(axis=0)
+    grid_reach = np.abs(offsets).max(axis=0)
+    reach = grid_reach if ti_reach is None else np.asarray(ti_reach, dtype=np.int64)
     # Padded TI: every lag from a real cell lands inside; padding counts as a full mismatch.
     padded = []
     for v in range(nvar):
@@ -118,7 +124,7 @@ def simulate_reference(
         wanted = np.zeros(grid.size, dtype=bool)
         wanted[cells] = True
         order = order[wanted[order]]
-        order, _ = sl.conflict_free_batches(grid, 0, tuple(int(r) for r in reach), order, 256)
+        order, _ = sl.conflict_free_batches(grid, 0, tuple(int(r) for r in grid_reach), order, 256)
         cells = [int(c) for c in order]
     source = np.full(int(np.prod(gshape)), -1, dtype=np.int64)
     starts = sl.uniform_draws(seed, 0, np.asarray(cells, dtype=np.int64), _START_STREAM)
@@ -129,13 +135,22 @@ def simulate_reference(
         where = at[None, :] + offsets
         inside = np.all((where >= 0) & (where < np.array(gshape)), axis=1)
         flat = np.ravel_multi_index(tuple(np.where(inside[:, None], where, 0).T), gshape)
+        node_delta = lag_delta
+        if matrices is not None:
+            m = np.asarray(matrices[int(classes.flat[node])], dtype=np.float64).reshape(3, 3)
+            h = offsets.astype(np.float64)
+            turned = np.stack(
+                [np.rint(m[a, 0] * h[:, 0] + m[a, 1] * h[:, 1] + m[a, 2] * h[:, 2]) for a in range(3)],
+                axis=1,
+            ).astype(np.int64)
+            node_delta = (turned[:, 0] * pshape[1] + turned[:, 1]) * pshape[2] + turned[:, 2]
         lags = []  # per variable: (deltas, values, weights) or None
         for v in range(nvar):
             centre = st[v].flat[node]
             vals = st[v].ravel()[flat]
             ok = inside & ~np.isnan(vals)
             idx = np.flatnonzero(ok)
-            d, x, w = lag_delta[idx], vals[idx], lag_weight[idx]
+            d, x, w = node_delta[idx], vals[idx], lag_weight[idx]
             if not np.isnan(centre):
                 d, x, w = np.r_[0, d], np.r_[centre, x], np.r_[1.0, w]
             d, x, w = d[:neighbors], x[:neighbors], w[:neighbors]
