@@ -51,6 +51,12 @@ class Categorical2D:
     def time_simulate_100x100(self) -> None:
         self.ds.simulate((100, 100), seed=1, threads=1)
 
+    def track_ns_per_comparison(self) -> float:
+        self.ds.simulate((100, 100), seed=1, threads=1)
+        return float(self.ds.last_stats["ns_per_comparison"])
+
+    track_ns_per_comparison.unit = "ns"  # type: ignore[attr-defined]
+
 
 class Direct3D:
     """3-D continuous, 64**3 cells, by thread count."""

@@ -30,6 +30,19 @@ CASES = {
     "mixed-partial-hard": dict(
         kinds=["continuous", "categorical"], path="random", accept=0.1, scan=0.3, hard=0.15
     ),
+    # Categorical-only nodes go through the byte kernel (codes <= 253, lags weighing 1); hard
+    # codes 7 and 300 occur nowhere in the TI, so they match no candidate.
+    "categorical-bytes-foreign-hard": dict(
+        kinds=["categorical"], path="random", accept=0.1, scan=0.6, hard=0.1,
+        hard_codes=(0, 1, 2, 7, 300),
+    ),
+    # The same rules through the float kernel: a TI code above a byte, and weighted lags.
+    "categorical-large-codes": dict(
+        kinds=["categorical"], path="random", accept=0.0, scan=0.6, hard=0.1, ti_codes=(0, 1, 300)
+    ),
+    "categorical-lag-power": dict(
+        kinds=["categorical"], path="random", accept=0.05, scan=0.6, hard=0.1, lag_power=1.5
+    ),
 }
 
 
@@ -47,7 +60,8 @@ def test_engine_matches_the_numpy_reference(name):
             a = _dyadic(rng, tshape)
             a[0, 5, 5] = np.nan  # a masked cell
         else:
-            a = rng.integers(0, 3, size=tshape)
+            codes = case.get("ti_codes")
+            a = rng.integers(0, 3, size=tshape) if codes is None else rng.choice(codes, tshape)
             a[0, 6, 2] = -1
         ti[f"v{i}"] = a
     hard = {}
@@ -56,7 +70,9 @@ def test_engine_matches_the_numpy_reference(name):
         if k == "continuous":
             hard[f"v{i}"] = np.where(known, _dyadic(rng, gshape), np.nan)
         else:
-            hard[f"v{i}"] = np.where(known, rng.integers(0, 3, size=gshape), -1)
+            codes = case.get("hard_codes")
+            drawn = rng.integers(0, 3, size=gshape) if codes is None else rng.choice(codes, gshape)
+            hard[f"v{i}"] = np.where(known, drawn, -1)
     weights = {f"v{i}": 1.0 + i for i in range(len(kinds))}
     ds = sl.DirectSampler(
         ti,
@@ -65,6 +81,7 @@ def test_engine_matches_the_numpy_reference(name):
         scan_fraction=case["scan"],
         search_radius=(0, 3, 3),
         weights=weights,
+        lag_power=case.get("lag_power", 0.0),
     )
     out, source = ds.simulate(gshape, hard=hard, seed=11, path=case["path"], return_source=True)
 
@@ -89,6 +106,7 @@ def test_engine_matches_the_numpy_reference(name):
         [weights[n] for n in names],
         11,
         path=case["path"],
+        lag_power=case.get("lag_power", 0.0),
     )
     np.testing.assert_array_equal(source, ref_source)
     for n, r in zip(names, ref, strict=True):

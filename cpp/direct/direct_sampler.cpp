@@ -45,7 +45,7 @@ double thread_cpu_seconds() noexcept {
 // Lags evaluated between two checks of the early exit.
 constexpr int kChunk = 12;
 // Extra slots beyond each end of the stored arrays, on top of the lag reach, for the last block.
-constexpr std::int64_t kTail = 2 * kLanes;
+constexpr std::int64_t kTail = 2 * kWideLanes;
 
 std::string str(std::int64_t v) { return std::to_string(v); }
 
@@ -100,6 +100,19 @@ TrainingImage::TrainingImage(const Ijk& shape, const std::vector<const float*>& 
       informed_[e] |= std::uint32_t{1} << v;
     }
   }
+  // Byte copies of the categorical variables whose codes all fit in a byte (same slots).
+  codes_.resize(values.size());
+  for (std::size_t v = 0; v < values.size(); ++v) {
+    if (kinds[v] != Kind::categorical) continue;
+    const auto& f = values_[v];
+    bool fits = true;
+    for (std::size_t e = 0; e < stored && fits; ++e)
+      fits = f[e] == kMaskedCategory || (f[e] >= 0.0f && f[e] <= float(kMaxByteCode) && f[e] == std::floor(f[e]));
+    if (!fits) continue;
+    auto& c = codes_[v];
+    c.resize(stored);
+    for (std::size_t e = 0; e < stored; ++e) c[e] = f[e] == kMaskedCategory ? kMaskedByte : static_cast<std::uint8_t>(f[e]);
+  }
   std::vector<std::uint8_t> real(static_cast<std::size_t>(slots), 0);
   for (Index i = 0; i < n; ++i) real[static_cast<std::size_t>(slot(padded_index(i)))] = 1;
   real_before_.assign(static_cast<std::size_t>(slots + 1), 0);
@@ -141,14 +154,17 @@ typedef std::int32_t LaneMask __attribute__((vector_size(kLanes * sizeof(float))
 #define SL_LOAD_LANES(dst, src) std::memcpy(&(dst), (src), sizeof(Lanes))
 // Lane-wise m ? a : b.
 #define SL_SELECT(m, a, b) ((Lanes)((((LaneMask)(a)) & (m)) | (((LaneMask)(b)) & ~(m))))
+#define SL_SELECT_INT(m, a, b) (((a) & (m)) | ((b) & ~(m)))
 
-[[gnu::always_inline]] inline bool all_set(const LaneMask& m) noexcept {
-  std::uint64_t w[kLanes / 2];
+template <class T>
+[[gnu::always_inline]] inline bool all_ones(const T& m) noexcept {
+  std::uint64_t w[sizeof(T) / 8];
   std::memcpy(w, &m, sizeof w);
   std::uint64_t r = ~std::uint64_t{0};
-  for (int i = 0; i < kLanes / 2; ++i) r &= w[i];
+  for (std::size_t i = 0; i < sizeof(T) / 8; ++i) r &= w[i];
   return r == ~std::uint64_t{0};
 }
+[[gnu::always_inline]] inline bool all_set(const LaneMask& m) noexcept { return all_ones(m); }
 
 SL_KERNEL bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
                               std::int64_t& comparisons) {
@@ -157,7 +173,8 @@ SL_KERNEL bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, f
   std::memcpy(&informed, node.informed + p, sizeof informed);
   std::memcpy(&lane, kIota, sizeof lane);
   const LaneMask need = LaneMask{} + static_cast<std::int32_t>(node.need);
-  const LaneMask valid = ((informed & need) == need) & (lane < lanes);
+  LaneMask valid = (informed & need) == need;
+  if (lanes < kLanes) valid &= lane < lanes;  // (a lane test GCC scalarises, for short blocks only)
   const Lanes inf = Lanes{} + std::numeric_limits<float>::infinity();
   const Lanes zero = Lanes{};
   const Lanes one = zero + 1.0f;
@@ -233,6 +250,84 @@ SL_KERNEL bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, f
   std::memcpy(out, &result, sizeof result);
   return true;
 }
+// The byte kernel: kWideLanes candidates per vector value of byte codes. Codes are compared
+// byte-wise and mismatches counted in int8 lanes (lag sets of at most kMaxByteLags lags); the float
+// parts run per group of kLanes lanes (no vector type wider than 64 bytes, which GCC would split
+// element by element). With every lag weighing 1 the float kernel's sums are exact integers, so
+// converting the count gives its `acc` exactly, and its early exit `acc > lim` is
+// `count > floor(lim)` in integers.
+typedef std::uint8_t WideCodes __attribute__((vector_size(kWideLanes)));
+typedef std::int8_t WideBytes __attribute__((vector_size(kWideLanes)));
+typedef std::int8_t GroupBytes __attribute__((vector_size(kLanes)));
+constexpr int kGroups = kWideLanes / kLanes;
+
+SL_KERNEL bool evaluate_wide(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
+                             std::int64_t& comparisons) {
+  static constexpr std::int32_t kIota[kLanes] = {0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15};
+  LaneMask iota;
+  std::memcpy(&iota, kIota, sizeof iota);
+  const LaneMask need = LaneMask{} + static_cast<std::int32_t>(node.need);
+  const Lanes zero = Lanes{};
+  LaneMask valid[kGroups];
+  Lanes base[kGroups];
+  for (int g = 0; g < kGroups; ++g) {
+    LaneMask informed;
+    std::memcpy(&informed, node.informed + p + g * kLanes, sizeof informed);
+    valid[g] = (informed & need) == need;
+    // (Only a block cut short needs the lane test; GCC would turn the constant `iota` into one
+    // scalar compare per lane.)
+    if (lanes < (g + 1) * kLanes) valid[g] &= iota < lanes - g * kLanes;
+    base[g] = zero;
+  }
+  const bool prune = best < std::numeric_limits<float>::infinity();
+  const Lanes best_v = zero + best;
+  for (int a = 0; a < node.count; ++a) {
+    const LagSet& lags = *node.lags[static_cast<std::size_t>(a)];
+    const std::uint8_t* ti = node.codes[static_cast<std::size_t>(a)] + p;
+    const float sum = node.sum[static_cast<std::size_t>(a)];
+    // lim as in evaluate_block (-1: out whatever the count), floored and capped at kMaxByteLags.
+    WideBytes lim = WideBytes{} - 1;
+    if (prune) {
+      for (int g = 0; g < kGroups; ++g) {
+        const Lanes room = (best_v - base[g]) * node.inv_share[static_cast<std::size_t>(a)];
+        const Lanes scaled = room * sum;
+        const LaneMask open = valid[g] & (room > zero);
+        const Lanes capped = SL_SELECT(scaled < float(kMaxByteLags), scaled, zero + float(kMaxByteLags));
+        const LaneMask whole = __builtin_convertvector(capped, LaneMask);  // truncation = floor here
+        const GroupBytes part = __builtin_convertvector(SL_SELECT_INT(open, whole, LaneMask{} - 1), GroupBytes);
+        std::memcpy(reinterpret_cast<char*>(&lim) + g * kLanes, &part, sizeof part);
+      }
+    }
+    WideBytes match = WideBytes{};  // minus the matches so far
+    WideBytes miss = WideBytes{};
+    const std::int64_t* delta = lags.delta.data();
+    const std::uint8_t* code = lags.code.data();
+    for (int k0 = 0; k0 < lags.size; k0 += kChunk) {
+      const int k1 = std::min(k0 + kChunk, lags.size);
+      for (int k = k0; k < k1; ++k) {
+        WideCodes t;
+        std::memcpy(&t, ti + delta[k], sizeof t);
+        match += (WideBytes)(t == code[k]);
+      }
+      miss = static_cast<std::int8_t>(k1) + match;
+      comparisons += std::int64_t{lanes} * (k1 - k0);
+      if (prune && all_ones(miss > lim)) return false;
+    }
+    for (int g = 0; g < kGroups; ++g) {
+      GroupBytes m;
+      std::memcpy(&m, reinterpret_cast<const char*>(&miss) + g * kLanes, sizeof m);
+      const Lanes mean = __builtin_convertvector(m, Lanes) / sum;
+      const Lanes weighted = node.share[static_cast<std::size_t>(a)] * mean;
+      base[g] += weighted;
+    }
+  }
+  const Lanes inf = zero + std::numeric_limits<float>::infinity();
+  for (int g = 0; g < kGroups; ++g) {
+    const Lanes result = SL_SELECT(valid[g], base[g], inf);
+    std::memcpy(out + g * kLanes, &result, sizeof result);
+  }
+  return true;
+}
 #else
 bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
                     std::int64_t& comparisons) {
@@ -282,6 +377,22 @@ bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, float best,
   }
   for (int j = 0; j < kLanes; ++j) out[j] = valid[j] ? base[j] : std::numeric_limits<float>::infinity();
   return true;
+}
+#endif
+
+#if !(defined(__GNUC__) || defined(__clang__))
+bool evaluate_wide(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
+                   std::int64_t& comparisons) {
+  // Plain C++: the float kernel per group of kLanes; an abandoned group reads +inf (none of its
+  // candidates could beat `best`, which is above the acceptance distance).
+  bool any = false;
+  for (int g = 0; g < kWideLanes; g += kLanes) {
+    const int n = std::clamp(lanes - g, 0, kLanes);
+    const bool ok = n > 0 && evaluate_block(node, p + g, n, best, out + g, comparisons);
+    if (!ok) std::fill(out + g, out + g + kLanes, std::numeric_limits<float>::infinity());
+    any |= ok;
+  }
+  return any;
 }
 #endif
 
@@ -366,6 +477,7 @@ class Simulation {
       l.r.resize(cap);
       l.value.resize(cap);
       l.weight.resize(cap);
+      l.code.resize(cap);
     }
     return w;
   }
@@ -512,6 +624,7 @@ class Simulation {
     auto& view = w.view;
     view.informed = ti.informed();
     view.count = 0;
+    view.bytes = true;
     for (int v = 0; v < nvar_; ++v) {
       const auto& l = w.lags[static_cast<std::size_t>(v)];
       if (l.size == 0) continue;
@@ -522,8 +635,30 @@ class Simulation {
       view.inv_share[a] = 1.0f / view.share[a];
       view.sum[a] = static_cast<float>(l.weight_sum);
       view.categorical[a] = ti.kind(v) == Kind::categorical;
+      view.codes[a] = byte_codes(ti, v, w.lags[static_cast<std::size_t>(v)]);
+      view.bytes = view.bytes && view.codes[a] != nullptr;
     }
     return true;
+  }
+
+  // The TI's byte codes of variable v when the byte kernel gives this lag set's exact distances
+  // (categorical, codes fit a byte, every lag weighs 1, at most kMaxByteLags lags), with the node values put
+  // into `l.code`; null otherwise.
+  static const std::uint8_t* byte_codes(const TrainingImage& ti, int v, detail::LagSet& l) {
+    const std::uint8_t* codes = ti.codes(v);
+    if (codes == nullptr || l.size > kMaxByteLags) return nullptr;
+    for (int k = 0; k < l.size; ++k)
+      if (l.weight[static_cast<std::size_t>(k)] != 1.0f) return nullptr;
+    for (int k = 0; k < l.size; ++k) {
+      const float x = l.value[static_cast<std::size_t>(k)];
+      // The float kernel compares x with the stored floats: a code matches itself, kMaskedCategory
+      // matches masked cells, anything else matches nothing.
+      l.code[static_cast<std::size_t>(k)] =
+          x == kMaskedCategory ? kMaskedByte
+          : (x >= 0.0f && x <= float(kMaxByteCode) && x == std::floor(x)) ? static_cast<std::uint8_t>(x)
+                                                                          : kForeignByte;
+    }
+    return codes;
   }
 
   // Sets the slot offsets of every lag for scan phase `phase`.
@@ -551,6 +686,11 @@ class Simulation {
     Index scanned = 0;
     float d[kLanes];
     Stats& st = w.stats;
+    const bool wide = w.view.bytes;
+    float wd[kWideLanes + kLanes];
+    std::fill(wd + kWideLanes, wd + kWideLanes + kLanes, std::numeric_limits<float>::infinity());
+    std::int64_t wide_from = -1, wide_to = -1;
+    bool wide_ok = false;
     while (scanned < n) {
       const std::int64_t e = phase * K + k;
       int lanes = static_cast<int>(std::min<std::int64_t>(kLanes, K - k));
@@ -562,7 +702,23 @@ class Simulation {
         real = left;
       }
       st.candidates += real;
-      if (real > 0 && detail::evaluate_block(w.view, e, lanes, best, d, st.comparisons)) {
+      bool ok = false;
+      if (real > 0 && wide) {
+        // Byte kernel: one evaluation covers kWideLanes slots of this phase; the blocks inside it
+        // read their distances from it (an abandoned one holds no candidate below its `best`,
+        // which is at least the current one).
+        if (e < wide_from || e + lanes > wide_to) {
+          const int span = static_cast<int>(std::min<std::int64_t>(kWideLanes, K - k));
+          wide_ok = detail::evaluate_wide(w.view, e, span, best, wd, st.comparisons);
+          wide_from = e;
+          wide_to = e + span;
+        }
+        ok = wide_ok;
+        if (ok) std::memcpy(d, wd + (e - wide_from), sizeof d);
+      } else if (real > 0) {
+        ok = detail::evaluate_block(w.view, e, lanes, best, d, st.comparisons);
+      }
+      if (ok) {
         if (scanned >= limit) {
           // Past the limit with nothing usable seen: the first informed candidate is taken.
           for (int j = 0; j < lanes; ++j)

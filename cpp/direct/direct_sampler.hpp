@@ -39,6 +39,16 @@ enum class Kind : std::uint8_t { continuous = 0, categorical = 1 };
 
 // Candidates evaluated together by the kernels.
 inline constexpr int kLanes = 16;
+// Candidates evaluated together by the byte kernel of categorical-only nodes (one AVX-512 register
+// of byte codes, two AVX2 or four SSE registers).
+inline constexpr int kWideLanes = 64;
+// Largest category code stored as a byte; a TI variable whose codes all fit gets a byte copy.
+inline constexpr int kMaxByteCode = 253;
+// Byte of a masked TI cell, and the byte a node value no byte code can equal is turned into.
+inline constexpr std::uint8_t kMaskedByte = 255;
+inline constexpr std::uint8_t kForeignByte = 254;
+// Most lags of one variable the byte kernel takes (mismatches are counted in int8 lanes).
+inline constexpr int kMaxByteLags = 127;
 // Largest number of variables (one bit each in the per-cell informed mask).
 inline constexpr int kMaxVariables = 32;
 // Value stored for a masked continuous TI cell: far outside [0, 1], so the clamped difference is 1.
@@ -96,6 +106,12 @@ class TrainingImage {
   }
   // Data by slot (slots -margin .. s*K + margin are readable); masked cells hold the sentinels.
   const float* data(int v) const noexcept { return values_[static_cast<std::size_t>(v)].data() + margin_; }
+  // Category codes as bytes by slot (same slots as `data`; kMaskedByte where masked), or null when the
+  // variable is continuous or holds a code above kMaxByteCode.
+  const std::uint8_t* codes(int v) const noexcept {
+    const auto& c = codes_[static_cast<std::size_t>(v)];
+    return c.empty() ? nullptr : c.data() + margin_;
+  }
   const std::uint32_t* informed() const noexcept { return informed_.data() + margin_; }
   // Number of real cells at slots [0, e), for e in [0, s*K].
   const std::uint32_t* real_before() const noexcept { return real_before_.data(); }
@@ -112,6 +128,7 @@ class TrainingImage {
   std::int64_t margin_ = 0;
   std::vector<Kind> kinds_;
   std::vector<std::vector<float>> values_;  // by slot, with `margin_` sentinel slots at both ends
+  std::vector<std::vector<std::uint8_t>> codes_;  // byte copies of categorical variables (or empty)
   std::vector<std::uint32_t> informed_;     // by slot, bit v set when variable v is informed
   std::vector<std::uint32_t> real_before_;
 };
@@ -187,6 +204,7 @@ struct LagSet {
   std::vector<std::int64_t> r;
   std::vector<float> value;
   std::vector<float> weight;
+  std::vector<std::uint8_t> code;  // node values as bytes (kForeignByte when no byte code equals them)
   double weight_sum = 0;
   int size = 0;
 };
@@ -202,6 +220,10 @@ struct NodeView {
   std::array<float, kMaxVariables> inv_share{};  // 1 / share
   std::array<float, kMaxVariables> sum{};        // sum of the lag weights
   std::array<bool, kMaxVariables> categorical{};
+  // Byte codes of a categorical variable whose lags all weigh 1 (null otherwise): a mismatch count
+  // is then exact, so the byte kernel gives the float kernel's distances bit for bit.
+  std::array<const std::uint8_t*, kMaxVariables> codes{};
+  bool bytes = false;  // every variable used has byte codes: the scan may use evaluate_wide
 };
 
 // Distances of the kLanes candidates at slots p, p + 1, ...: +inf for lanes >= `lanes` and
@@ -209,6 +231,13 @@ struct NodeView {
 // abandoned because no candidate can get below `best`. Adds the comparisons made to `comparisons`.
 bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
                     std::int64_t& comparisons);
+
+// The same for the kWideLanes candidates at slots p, p + 1, ... of a node whose variables all have byte
+// codes (node.bytes): category codes compared kWideLanes per vector value, mismatches counted in
+// integers. Same distances as evaluate_block for every lane; the early exit needs all kWideLanes
+// lanes out of reach.
+bool evaluate_wide(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
+                   std::int64_t& comparisons);
 
 // First scan candidate of a node: floor(u * n) with u the node's draw on the start stream.
 Index scan_start(std::uint64_t seed, Index cell, Index n) noexcept;

@@ -3,6 +3,7 @@
 #include <algorithm>
 #include <cmath>
 #include <cstdint>
+#include <cstring>
 #include <limits>
 #include <vector>
 
@@ -174,6 +175,93 @@ SL_TEST(direct_block_kernel_matches_a_scalar_loop) {
     SL_CHECK(sl::direct::detail::evaluate_block(view, e, lanes, static_cast<float>(lowest) * 1.01f + 1e-6f, out, comparisons));
   }
   SL_CHECK(real_lanes >= 20);
+}
+
+SL_TEST(direct_byte_kernel_equals_the_float_kernel) {
+  // Two categorical variables, lags weighing 1: evaluate_wide must give evaluate_block's floats bit
+  // for bit, lane by lane, and abandon a block only when no lane beats `best`.
+  const Ijk shape{2, 11, 53};
+  auto a = field(shape, 21, 0), b = field(shape, 22, 0);
+  for (auto& x : a) x = std::floor(x * 3.99f);  // codes 0..3
+  for (auto& x : b) x = std::floor(x * 1.99f);  // codes 0..1
+  a[7] = -1;
+  b[100] = -1;
+  b[101] = std::numeric_limits<float>::quiet_NaN();
+  const Offset reach{1, 3, 3};
+  const TrainingImage ti(shape, {a.data(), b.data()}, {Kind::categorical, Kind::categorical}, reach);
+  SL_CHECK(ti.codes(0) != nullptr && ti.codes(1) != nullptr);
+  const auto t = Template::box({1, 3, 3});
+  std::vector<Offset> lags;
+  sl::direct::detail::LagSet la, lb;
+  const float node_a[] = {0, 1, 2, 3, 7, 300, -1};  // 7 and 300: in no TI cell; -1: equals the masked sentinel
+  for (std::size_t k = 0; k < 40; ++k) {
+    lags.push_back(t.offsets()[(k * 5) % t.size()]);
+    la.value.push_back(node_a[static_cast<std::size_t>(unit(31, k) * 6.99f)]);
+    lb.value.push_back(std::floor(unit(32, k) * 1.99f));
+  }
+  for (auto* l : {&la, &lb}) {
+    l->weight.assign(40, 1.0f);
+    l->code.resize(40);
+  }
+  la.size = 40;
+  lb.size = 17;
+  la.weight_sum = 40;
+  lb.weight_sum = 17;
+  for (std::size_t k = 0; k < 40; ++k) {
+    const float x = la.value[k];
+    la.code[k] = x == kMaskedCategory ? kMaskedByte : x <= float(kMaxByteCode) ? static_cast<std::uint8_t>(x) : kForeignByte;
+    lb.code[k] = static_cast<std::uint8_t>(lb.value[k]);
+  }
+  sl::direct::detail::NodeView view;
+  view.informed = ti.informed();
+  view.need = 3;
+  view.count = 2;
+  view.data = {ti.data(0), ti.data(1)};
+  view.codes = {ti.codes(0), ti.codes(1)};
+  view.bytes = true;
+  view.lags = {&la, &lb};
+  view.share = {1.0f / 3.0f, 2.0f / 3.0f};
+  view.inv_share = {3.0f, 1.5f};
+  view.sum = {40.0f, 17.0f};
+  view.categorical = {true, true};
+  const std::int64_t K = ti.phase_length();
+  int compared = 0, abandoned = 0;
+  for (std::int64_t e = 0; e < ti.stride() * K; e += 29) {
+    const std::int64_t phase = e / K;
+    set_phase(ti, la, lags, phase);
+    set_phase(ti, lb, lags, phase);
+    const int lanes = static_cast<int>(std::min<std::int64_t>(kWideLanes, K - e % K));
+    float wide[kWideLanes], block[kWideLanes];
+    std::int64_t cw = 0, cb = 0;
+    SL_CHECK(sl::direct::detail::evaluate_wide(view, e, lanes, std::numeric_limits<float>::infinity(), wide, cw));
+    float lowest = std::numeric_limits<float>::infinity();
+    for (int g = 0; g < kWideLanes; g += kLanes) {
+      const int n = std::clamp(lanes - g, 0, kLanes);
+      if (n == 0) break;
+      SL_CHECK(sl::direct::detail::evaluate_block(view, e + g, n, std::numeric_limits<float>::infinity(), block + g, cb));
+      for (int j = g; j < g + n; ++j) {
+        SL_CHECK(std::memcmp(&wide[j], &block[j], sizeof(float)) == 0);  // bit for bit, +inf included
+        lowest = std::min(lowest, wide[j]);
+        ++compared;
+      }
+    }
+    SL_CHECK(cw == cb);
+    if (!(lowest < std::numeric_limits<float>::infinity()) || lowest <= 0) continue;
+    // Best at the lowest distance: none can beat it, so the block may be abandoned; either way no
+    // lane that is returned may differ. Just above it, the block must be evaluated.
+    float out[kWideLanes];
+    if (!sl::direct::detail::evaluate_wide(view, e, lanes, lowest, out, cw)) ++abandoned;
+    SL_CHECK(sl::direct::detail::evaluate_wide(view, e, lanes, std::nextafter(lowest, 2.0f), out, cw));
+    for (int j = 0; j < lanes; ++j) SL_CHECK(std::memcmp(&out[j], &wide[j], sizeof(float)) == 0);
+    if (!sl::direct::detail::evaluate_wide(view, e, lanes, lowest * 0.5f, out, cw)) ++abandoned;
+  }
+  SL_CHECK(compared >= 1000);
+  SL_CHECK(abandoned >= 10);
+  // A code above a byte leaves the variable to the float kernel.
+  std::vector<float> c(a);
+  c[3] = 300;
+  const TrainingImage wide_codes(shape, {c.data()}, {Kind::categorical}, reach);
+  SL_CHECK(wide_codes.codes(0) == nullptr);
 }
 
 SL_TEST(direct_padding_marks_outside_cells_as_masked) {
