@@ -431,8 +431,10 @@ void bind_direct(py::module_& m) {
         stats["accepted"] = st.accepted;
         stats["exact"] = st.exact;
         stats["waits"] = st.waits;
+        stats["wait_seconds"] = st.wait_seconds;
         stats["distance_sum"] = st.distance_sum;
         stats["seconds"] = st.seconds;
+        stats["setup_seconds"] = st.setup_seconds;
         stats["cpu_seconds"] = st.cpu_seconds;
         stats["threads"] = st.threads;
         return py::make_tuple(state, source, stats);

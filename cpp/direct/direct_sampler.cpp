@@ -499,7 +499,6 @@ class Simulation {
   bool node(Index c, std::int64_t pos, Worker& w) const {
     const std::uint32_t need = need_at(c);
     if (!need) return true;
-    const double t0 = thread_cpu_seconds();
     const ZoneData& zd = zone_of(c);
     if (!gather(c, pos, zd, w)) return false;
     Index src = -1;
@@ -511,7 +510,6 @@ class Simulation {
     for (int v = 0; v < nvar_; ++v)
       if (need & (std::uint32_t{1} << v)) state_[static_cast<std::size_t>(v)][c] = ti.data(v)[e];
     source_[c] = src;
-    w.stats.cpu_seconds += thread_cpu_seconds() - t0;
     ++w.stats.nodes;
     w.stats.distance_sum += dist;
     if (accepted) {
@@ -536,11 +534,14 @@ class Simulation {
   bool wait_for(Index g, Worker& w) const {
     if (done_[g].load(std::memory_order_acquire)) return true;
     ++w.stats.waits;
+    const auto t0 = std::chrono::steady_clock::now();
     for (int spin = 0;; ++spin) {
-      if (done_[g].load(std::memory_order_acquire)) return true;
+      if (done_[g].load(std::memory_order_acquire)) break;
       if (ctl_->cancelled()) return false;
       if (spin >= 64) std::this_thread::yield();
     }
+    w.stats.wait_seconds += std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+    return true;
   }
 
   // The TI lag compared with grid lag `lag` at a node of class `cls`: rint(M lag), half to even
@@ -907,10 +908,18 @@ Stats simulate_zones(const std::vector<const TrainingImage*>& tis, const std::ve
   for (int i = 0; i < threads; ++i) workers.push_back(sim.make_worker());
   std::atomic<std::int64_t> next{0};
   const auto count = static_cast<std::int64_t>(path.size());
+  const double setup = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
   run_supervised(
       threads,
       [&](int worker, int) {
         Worker& w = workers[static_cast<std::size_t>(worker)];
+        // The worker's CPU time, read once at each end (a thread-clock read is a system call;
+        // per node it cost ~2 % of a run with short scans).
+        struct CpuClock {
+          double& total;
+          double start = thread_cpu_seconds();
+          ~CpuClock() { total += thread_cpu_seconds() - start; }
+        } clock{w.stats.cpu_seconds};
         while (!ctl.cancelled()) {
           const std::int64_t pos = next.fetch_add(1, std::memory_order_relaxed);
           if (pos >= count) return;
@@ -929,10 +938,12 @@ Stats simulate_zones(const std::vector<const TrainingImage*>& tis, const std::ve
     total.accepted += w.stats.accepted;
     total.exact += w.stats.exact;
     total.waits += w.stats.waits;
+    total.wait_seconds += w.stats.wait_seconds;
     total.distance_sum += w.stats.distance_sum;
     total.cpu_seconds += w.stats.cpu_seconds;
   }
   total.threads = threads;
+  total.setup_seconds = setup;
   total.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
   return total;
 }

@@ -156,9 +156,11 @@ struct Stats {
   std::int64_t accepted = 0;     // nodes that stopped at a candidate <= accept_distance
   std::int64_t exact = 0;        // of those, nodes whose accepted distance was exactly 0
   std::int64_t waits = 0;        // times a node had to wait for an earlier node still in progress
+  double wait_seconds = 0;       // wall time the workers spent in those waits
   double distance_sum = 0;       // sum over nodes of the distance of the copied candidate
   double seconds = 0;            // wall time of the simulation proper
-  double cpu_seconds = 0;        // CPU time the workers spent on nodes (thread CPU clocks; 0 if unavailable)
+  double setup_seconds = 0;      // wall time before the workers start (checks, path order, batches): one thread
+  double cpu_seconds = 0;        // CPU time of the worker threads (thread CPU clocks; 0 if unavailable)
   int threads = 0;               // worker threads used
 };
 
