@@ -148,19 +148,25 @@ def direct(args: argparse.Namespace) -> Iterator[Row]:
     ti3 = _field((48, 48, 48), 3.0, 2)
     n = 64 if args.quick else 100
     ds = sl.DirectSampler(ti3, neighbors=30, accept_distance=0.05, scan_fraction=0.3)
-    wall, cpu, waits = {}, {}, {}
+    wall, cpu, stats = {}, {}, {}
     for threads in (1, 2):
         w0 = time.perf_counter()
         ds.simulate((n, n, n), seed=1, threads=threads)
         wall[threads] = time.perf_counter() - w0
         cpu[threads] = ds.last_stats["cpu_seconds"]
-        waits[threads] = ds.last_stats["waits"]
+        stats[threads] = ds.last_stats
     # Worker CPU / wall = cores actually obtained; on a shared machine it shows whether the wall
-    # ratio measures the engine or the neighbours' load. Waits: nodes that had to wait for another.
+    # ratio measures the engine or the neighbours' load. Waits: nodes that had to wait for another
+    # thread's node (and the wall time they waited). The CPU bound is the speedup two free cores
+    # would give from the counters: (setup + worker CPU) at 1 thread over (setup + worker CPU / 2)
+    # at 2 threads, setup (checks, path order, batches) running on one thread.
+    setup = stats[1]["setup_seconds"]
+    bound = (setup + cpu[1]) / (setup + cpu[2] / 2)
     yield (
         f"3-D {n}^3 = {n**3:,} cells, TI 48^3, n=30: wall s, 2 threads (ours) vs 1 thread"
-        f" (reference); cores obtained {cpu[1] / wall[1]:.2f} / {cpu[2] / wall[2]:.2f},"
-        f" waits {waits[2]}",
+        f" (reference); cores obtained {cpu[1] / wall[1]:.2f} / {cpu[2] / wall[2]:.2f}; worker CPU"
+        f" {cpu[1]:.1f} / {cpu[2]:.1f} s; setup {stats[2]['setup_seconds']:.2f} s; waits"
+        f" {stats[2]['waits']} ({stats[2]['wait_seconds']:.2f} s); CPU bound {bound:.2f}x",
         wall[2],
         wall[1],
         wall[1] / wall[2],

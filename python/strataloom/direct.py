@@ -222,9 +222,9 @@ class DirectSampler:
     The hyperparameters are stored unchanged; they are checked against one table of constraints
     when the sampler is built and again at each `simulate` call. ``last_stats`` holds the engine
     counters of the latest run (nodes, candidates, neighbour comparisons, wall ``seconds``, of
-    which ``setup_seconds`` on one thread before the workers start, the workers' ``cpu_seconds``, ``waits`` (nodes that waited for another thread's node),
-    ``wait_seconds`` (wall time spent in those waits) and ``ns_per_comparison`` = worker CPU
-    time / comparisons).
+    which ``setup_seconds`` on one thread before the workers start, the workers'
+    ``cpu_seconds``, ``waits`` (nodes that waited for another thread's node), ``wait_seconds``
+    (wall time spent in those waits) and ``ns_per_comparison`` = worker CPU time / comparisons).
 
     References
     ----------
