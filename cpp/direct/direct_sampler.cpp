@@ -150,6 +150,9 @@ namespace detail {
 typedef float Lanes __attribute__((vector_size(kLanes * sizeof(float))));
 typedef std::int32_t LaneMask __attribute__((vector_size(kLanes * sizeof(float))));
 
+typedef std::uint8_t GroupCodes __attribute__((vector_size(kLanes)));
+typedef std::int8_t GroupBytes __attribute__((vector_size(kLanes)));
+
 // Unaligned load of 16 lanes (a macro: a function returning a vector would change ABI per target).
 #define SL_LOAD_LANES(dst, src) std::memcpy(&(dst), (src), sizeof(Lanes))
 // Lane-wise m ? a : b.
@@ -202,9 +205,25 @@ SL_KERNEL bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, f
     const std::int64_t* delta = lags.delta.data();
     const float* value = lags.value.data();
     const float* weight = lags.weight.data();
+    const std::uint8_t* codes = cat && node.codes[static_cast<std::size_t>(a)] != nullptr
+                                    ? node.codes[static_cast<std::size_t>(a)] + p
+                                    : nullptr;
+    const std::uint8_t* code = lags.code.data();
     for (int k0 = 0; k0 < lags.size; k0 += kChunk) {
       const int k1 = std::min(k0 + kChunk, lags.size);
-      if (cat) {
+      if (codes != nullptr) {
+        // Byte codes: 16 bytes per lag instead of 64, the same float sums.
+        for (int k = k0; k < k1; ++k) {
+          GroupCodes t;
+          std::memcpy(&t, codes + delta[k], sizeof t);
+          const LaneMask differs = __builtin_convertvector((GroupBytes)(t != code[k]), LaneMask);
+          const Lanes term = (Lanes)(differs & (LaneMask)(zero + weight[k]));
+          if ((k & 1) == 0)
+            even += term;
+          else
+            odd += term;
+        }
+      } else if (cat) {
         for (int k = k0; k < k1; ++k) {
           Lanes t;
           SL_LOAD_LANES(t, ti + delta[k]);
@@ -258,7 +277,6 @@ SL_KERNEL bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, f
 // `count > floor(lim)` in integers.
 typedef std::uint8_t WideCodes __attribute__((vector_size(kWideLanes)));
 typedef std::int8_t WideBytes __attribute__((vector_size(kWideLanes)));
-typedef std::int8_t GroupBytes __attribute__((vector_size(kLanes)));
 constexpr int kGroups = kWideLanes / kLanes;
 
 SL_KERNEL bool evaluate_wide(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
@@ -637,19 +655,25 @@ class Simulation {
       view.sum[a] = static_cast<float>(l.weight_sum);
       view.categorical[a] = ti.kind(v) == Kind::categorical;
       view.codes[a] = byte_codes(ti, v, w.lags[static_cast<std::size_t>(v)]);
-      view.bytes = view.bytes && view.codes[a] != nullptr;
+      view.bytes = view.bytes && view.codes[a] != nullptr && counts_exact(l);
     }
     return true;
   }
 
-  // The TI's byte codes of variable v when the byte kernel gives this lag set's exact distances
-  // (categorical, codes fit a byte, every lag weighs 1, at most kMaxByteLags lags), with the node values put
+  // Whether mismatch counts give the float kernel's sums exactly: every lag weighs 1 and the
+  // count fits the byte kernel's int8 lanes.
+  static bool counts_exact(const detail::LagSet& l) {
+    if (l.size > kMaxByteLags) return false;
+    for (int k = 0; k < l.size; ++k)
+      if (l.weight[static_cast<std::size_t>(k)] != 1.0f) return false;
+    return true;
+  }
+
+  // The TI's byte codes of variable v (categorical, codes fit a byte), with the node values put
   // into `l.code`; null otherwise.
   static const std::uint8_t* byte_codes(const TrainingImage& ti, int v, detail::LagSet& l) {
     const std::uint8_t* codes = ti.codes(v);
-    if (codes == nullptr || l.size > kMaxByteLags) return nullptr;
-    for (int k = 0; k < l.size; ++k)
-      if (l.weight[static_cast<std::size_t>(k)] != 1.0f) return nullptr;
+    if (codes == nullptr) return nullptr;
     for (int k = 0; k < l.size; ++k) {
       const float x = l.value[static_cast<std::size_t>(k)];
       // The float kernel compares x with the stored floats: a code matches itself, kMaskedCategory

@@ -222,10 +222,12 @@ struct NodeView {
   std::array<float, kMaxVariables> inv_share{};  // 1 / share
   std::array<float, kMaxVariables> sum{};        // sum of the lag weights
   std::array<bool, kMaxVariables> categorical{};
-  // Byte codes of a categorical variable whose lags all weigh 1 (null otherwise): a mismatch count
-  // is then exact, so the byte kernel gives the float kernel's distances bit for bit.
+  // Byte codes of a categorical variable (TrainingImage::codes; null otherwise), with the node
+  // values in LagSet::code. evaluate_block reads them instead of the floats (same sums).
   std::array<const std::uint8_t*, kMaxVariables> codes{};
-  bool bytes = false;  // every variable used has byte codes: the scan may use evaluate_wide
+  // Every variable used has byte codes, lags weighing 1 and at most kMaxByteLags lags: a mismatch
+  // count is then the float kernel's sum exactly, and the scan uses evaluate_wide.
+  bool bytes = false;
 };
 
 // Distances of the kLanes candidates at slots p, p + 1, ...: +inf for lanes >= `lanes` and

@@ -257,6 +257,31 @@ SL_TEST(direct_byte_kernel_equals_the_float_kernel) {
   }
   SL_CHECK(compared >= 1000);
   SL_CHECK(abandoned >= 10);
+  // Weighted lags: evaluate_block reads the byte codes when given them, with the same float sums.
+  for (auto* l : {&la, &lb}) {
+    l->weight_sum = 0;
+    for (int k = 0; k < l->size; ++k) {
+      l->weight[static_cast<std::size_t>(k)] = 0.3f + unit(33, static_cast<std::uint64_t>(k));
+      l->weight_sum += l->weight[static_cast<std::size_t>(k)];
+    }
+  }
+  view.sum = {static_cast<float>(la.weight_sum), static_cast<float>(lb.weight_sum)};
+  sl::direct::detail::NodeView floats = view;
+  floats.codes = {};
+  floats.bytes = false;
+  int weighted = 0;
+  for (std::int64_t e = 0; e < ti.stride() * K; e += 5) {
+    set_phase(ti, la, lags, e / K);
+    set_phase(ti, lb, lags, e / K);
+    const int lanes = static_cast<int>(std::min<std::int64_t>(kLanes, K - e % K));
+    float x[kLanes], y[kLanes];
+    std::int64_t cx = 0, cy = 0;
+    SL_CHECK(sl::direct::detail::evaluate_block(view, e, lanes, std::numeric_limits<float>::infinity(), x, cx));
+    SL_CHECK(sl::direct::detail::evaluate_block(floats, e, lanes, std::numeric_limits<float>::infinity(), y, cy));
+    SL_CHECK(std::memcmp(x, y, sizeof(float) * static_cast<std::size_t>(lanes)) == 0 && cx == cy);
+    for (int j = 0; j < lanes; ++j) weighted += x[j] < std::numeric_limits<float>::infinity() ? 1 : 0;
+  }
+  SL_CHECK(weighted >= 400);
   // A code above a byte leaves the variable to the float kernel.
   std::vector<float> c(a);
   c[3] = 300;
