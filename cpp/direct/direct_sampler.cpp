@@ -346,6 +346,85 @@ SL_KERNEL bool evaluate_wide(const NodeView& node, std::int64_t p, int lanes, fl
   }
   return true;
 }
+// The screening kernel: as evaluate_wide, with integer weights summed in int16 lanes (two halves of
+// 32 lanes) and a lower bound of the distance instead of the distance.
+typedef std::int16_t HalfCounts __attribute__((vector_size(kWideLanes)));
+typedef std::int8_t HalfBytes __attribute__((vector_size(kWideLanes / 2)));
+typedef std::int16_t GroupCounts __attribute__((vector_size(2 * kLanes)));
+
+// Margin of the bound: the float kernel's sums, division and products round by far less.
+constexpr float kScreenMargin = 1.0f - 1e-3f;
+
+SL_KERNEL bool screen_wide(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
+                           std::int64_t& comparisons) {
+  static constexpr std::int32_t kIota[kLanes] = {0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15};
+  LaneMask iota;
+  std::memcpy(&iota, kIota, sizeof iota);
+  const LaneMask need = LaneMask{} + static_cast<std::int32_t>(node.need);
+  const Lanes zero = Lanes{};
+  LaneMask valid[kGroups];
+  Lanes bound[kGroups];
+  for (int g = 0; g < kGroups; ++g) {
+    LaneMask informed;
+    std::memcpy(&informed, node.informed + p + g * kLanes, sizeof informed);
+    valid[g] = (informed & need) == need;
+    if (lanes < (g + 1) * kLanes) valid[g] &= iota < lanes - g * kLanes;
+    bound[g] = zero;
+  }
+  const bool prune = best < std::numeric_limits<float>::infinity();
+  const Lanes best_v = zero + best;
+  for (int a = 0; a < node.count; ++a) {
+    const LagSet& lags = *node.lags[static_cast<std::size_t>(a)];
+    const std::uint8_t* ti = node.codes[static_cast<std::size_t>(a)] + p;
+    const std::size_t ai = static_cast<std::size_t>(a);
+    // Bound of this variable's part: scale * (integer mismatch sum).
+    const float scale = node.share[ai] * lags.unit / node.sum[ai] * kScreenMargin;
+    // A lane is out once its integer sum exceeds floor((best - bound) / scale) (-1: out already).
+    HalfCounts lim[2] = {HalfCounts{} - 1, HalfCounts{} - 1};
+    if (prune) {
+      for (int g = 0; g < kGroups; ++g) {
+        const Lanes room = (best_v - bound[g]) / scale;
+        const LaneMask open = valid[g] & (room >= zero);
+        const Lanes capped = SL_SELECT(room < 32767.0f, room, zero + 32767.0f);
+        const LaneMask whole = __builtin_convertvector(capped, LaneMask);
+        const GroupCounts part = __builtin_convertvector(SL_SELECT_INT(open, whole, LaneMask{} - 1), GroupCounts);
+        std::memcpy(reinterpret_cast<char*>(&lim[g / 2]) + (g % 2) * sizeof part, &part, sizeof part);
+      }
+    }
+    HalfCounts sum[2] = {HalfCounts{}, HalfCounts{}};
+    const std::int64_t* delta = lags.delta.data();
+    const std::uint8_t* code = lags.code.data();
+    const std::int16_t* iw = lags.iweight.data();
+    for (int k0 = 0; k0 < lags.size; k0 += kChunk) {
+      const int k1 = std::min(k0 + kChunk, lags.size);
+      for (int k = k0; k < k1; ++k) {
+        WideCodes t;
+        std::memcpy(&t, ti + delta[k], sizeof t);
+        const WideBytes differs = (WideBytes)(t != code[k]);
+        HalfBytes d0, d1;
+        std::memcpy(&d0, &differs, sizeof d0);
+        std::memcpy(&d1, reinterpret_cast<const char*>(&differs) + sizeof d0, sizeof d1);
+        const HalfCounts w = HalfCounts{} + iw[k];
+        sum[0] += __builtin_convertvector(d0, HalfCounts) & w;
+        sum[1] += __builtin_convertvector(d1, HalfCounts) & w;
+      }
+      comparisons += std::int64_t{lanes} * (k1 - k0);
+      if (prune && all_ones(sum[0] > lim[0]) && all_ones(sum[1] > lim[1])) return false;
+    }
+    for (int g = 0; g < kGroups; ++g) {
+      GroupCounts c;
+      std::memcpy(&c, reinterpret_cast<const char*>(&sum[g / 2]) + (g % 2) * sizeof c, sizeof c);
+      const Lanes part = scale * __builtin_convertvector(c, Lanes);
+      bound[g] += part;
+    }
+  }
+  const Lanes inf = zero + std::numeric_limits<float>::infinity();
+  for (int g = 0; g < kGroups; ++g) {
+    const Lanes result = SL_SELECT(valid[g], bound[g], inf);
+    std::memcpy(out + g * kLanes, &result, sizeof result);
+  }
+  return true;
+}
 #else
 bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
                     std::int64_t& comparisons) {
@@ -411,6 +490,14 @@ bool evaluate_wide(const NodeView& node, std::int64_t p, int lanes, float best, 
     any |= ok;
   }
   return any;
+}
+#endif
+
+#if !(defined(__GNUC__) || defined(__clang__))
+bool screen_wide(const NodeView&, std::int64_t, int, float, float* out, std::int64_t&) {
+  // Plain C++: no screening (every bound 0, so every block is evaluated exactly).
+  std::fill(out, out + kWideLanes, 0.0f);
+  return true;
 }
 #endif
 
@@ -496,6 +583,7 @@ class Simulation {
       l.value.resize(cap);
       l.weight.resize(cap);
       l.code.resize(cap);
+      l.iweight.resize(cap);
     }
     return w;
   }
@@ -644,6 +732,7 @@ class Simulation {
     view.informed = ti.informed();
     view.count = 0;
     view.bytes = true;
+    view.screen = true;
     for (int v = 0; v < nvar_; ++v) {
       const auto& l = w.lags[static_cast<std::size_t>(v)];
       if (l.size == 0) continue;
@@ -656,8 +745,22 @@ class Simulation {
       view.categorical[a] = ti.kind(v) == Kind::categorical;
       view.codes[a] = byte_codes(ti, v, w.lags[static_cast<std::size_t>(v)]);
       view.bytes = view.bytes && view.codes[a] != nullptr && counts_exact(l);
+      view.screen = view.screen && view.codes[a] != nullptr;
+      if (view.codes[a] != nullptr) integer_weights(w.lags[static_cast<std::size_t>(v)]);
     }
+    view.screen = view.screen && !view.bytes;
     return true;
+  }
+
+  // LagSet::iweight and unit for screen_wide: floor(w / unit) with unit = weight_sum / 32767, so
+  // the integers of any set of lags sum to at most 32767 and, times unit, to at most their weights.
+  static void integer_weights(detail::LagSet& l) {
+    const double unit = l.weight_sum / 32767.0;
+    for (int k = 0; k < l.size; ++k)
+      l.iweight[static_cast<std::size_t>(k)] =
+          static_cast<std::int16_t>(std::floor(static_cast<double>(l.weight[static_cast<std::size_t>(k)]) / unit));
+    // Rounded down, so unit * integer <= weight also in float.
+    l.unit = std::nextafter(static_cast<float>(unit), 0.0f);
   }
 
   // Whether mismatch counts give the float kernel's sums exactly: every lag weighs 1 and the
@@ -712,6 +815,7 @@ class Simulation {
     float d[kLanes];
     Stats& st = w.stats;
     const bool wide = w.view.bytes;
+    const bool screen = w.view.screen;
     float wd[kWideLanes + kLanes];
     std::fill(wd + kWideLanes, wd + kWideLanes + kLanes, std::numeric_limits<float>::infinity());
     std::int64_t wide_from = -1, wide_to = -1;
@@ -728,7 +832,21 @@ class Simulation {
       }
       st.candidates += real;
       bool ok = false;
-      if (real > 0 && wide) {
+      if (real > 0 && screen) {
+        // Screening: one pass bounds kWideLanes slots from below; a block is evaluated exactly
+        // only when one of its lanes may beat `best` (an abandoned block has no such lane, and
+        // with best > accept_distance no lane of it would be accepted either).
+        if (e < wide_from || e + lanes > wide_to) {
+          const int span = static_cast<int>(std::min<std::int64_t>(kWideLanes, K - k));
+          wide_ok = detail::screen_wide(w.view, e, span, best, wd, st.comparisons);
+          wide_from = e;
+          wide_to = e + span;
+        }
+        bool open = false;
+        if (wide_ok)
+          for (int j = 0; j < lanes; ++j) open |= !(wd[e - wide_from + j] > best);
+        ok = open && detail::evaluate_block(w.view, e, lanes, best, d, st.comparisons);
+      } else if (real > 0 && wide) {
         // Byte kernel: one evaluation covers kWideLanes slots of this phase; the blocks inside it
         // read their distances from it (an abandoned one holds no candidate below its `best`,
         // which is at least the current one).

@@ -207,6 +207,10 @@ struct LagSet {
   std::vector<float> value;
   std::vector<float> weight;
   std::vector<std::uint8_t> code;  // node values as bytes (kForeignByte when no byte code equals them)
+  // Weights as integers for screen_wide: floor(weight / unit), unit = weight_sum / 32767, so that
+  // unit * (sum of the integers of the mismatched lags) is at most the weighted mismatch sum.
+  std::vector<std::int16_t> iweight;
+  float unit = 0;
   double weight_sum = 0;
   int size = 0;
 };
@@ -228,6 +232,9 @@ struct NodeView {
   // Every variable used has byte codes, lags weighing 1 and at most kMaxByteLags lags: a mismatch
   // count is then the float kernel's sum exactly, and the scan uses evaluate_wide.
   bool bytes = false;
+  // Every variable used has byte codes but some lags weigh other than 1: the scan screens 64
+  // candidates at a time with screen_wide and evaluates exactly only blocks that may hold a winner.
+  bool screen = false;
 };
 
 // Distances of the kLanes candidates at slots p, p + 1, ...: +inf for lanes >= `lanes` and
@@ -242,6 +249,13 @@ bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, float best,
 // lanes out of reach.
 bool evaluate_wide(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
                    std::int64_t& comparisons);
+
+// Lower bounds of evaluate_block's distances for the kWideLanes candidates at slots p, p + 1, ...
+// of a node whose variables all have byte codes (weighted lags allowed): mismatches summed with
+// LagSet::iweight in int16 lanes, scaled down by 1e-3 beyond the float kernel's rounding; +inf for
+// invalid lanes. Returns false when every lane's bound exceeds `best` (a finite best).
+bool screen_wide(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
+                 std::int64_t& comparisons);
 
 // First scan candidate of a node: floor(u * n) with u the node's draw on the start stream.
 Index scan_start(std::uint64_t seed, Index cell, Index n) noexcept;
