@@ -22,7 +22,10 @@
 // after it that is gets taken. Kernels evaluate 16 consecutive candidates at once: the TI is stored so
 // that the values one lag reads for consecutive candidates are contiguous, so the inner loop is a
 // plain vector loop over candidates (not over neighbours), and a block stops early, every 12 lags,
-// once none of its candidates can beat the best seen.
+// once none of its candidates can beat the best seen. Categorical variables whose codes fit a byte
+// are also stored as bytes: nodes with only such variables are scanned 64 candidates at a time,
+// by exact mismatch counts when every lag weighs 1 (evaluate_wide) and otherwise by a lower bound
+// that decides which blocks evaluate_block must compute (screen_wide); the choices are the same.
 #pragma once
 
 #include <array>
