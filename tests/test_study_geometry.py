@@ -13,6 +13,7 @@ from strataloom.cli import main
 from strataloom.qc import check_run, local_azimuth, orientation_gap
 from strataloom.study import load_study
 from strataloom.workflow import run_study
+from study_helpers import cli_check_error
 from test_tree_geometry import angle_gap, azimuth_of_bands, straight_channels
 
 # Invented data (for the tests only): a straight-channel TI and a blob TI.
@@ -123,15 +124,6 @@ def test_check_lists_geometry_and_zones(tmp_path, capsys):
     assert "zone 1: 0.38 of the grid, blobs.npy" in out
 
 
-def _cli_error(capsys, path):
-    code = main(["check", "--no-probe", str(path)])
-    err = capsys.readouterr().err.strip()
-    assert code == 2
-    assert len(err.splitlines()) == 1, err
-    assert "Traceback" not in err
-    return err
-
-
 @pytest.mark.parametrize(
     ("edit", "expect"),
     [
@@ -163,7 +155,7 @@ def _cli_error(capsys, path):
 def test_bad_geometry_and_zone_keys(tmp_path, capsys, edit, expect):
     p = write_study(tmp_path)
     edit(tmp_path)
-    err = _cli_error(capsys, p)
+    err = cli_check_error(capsys, p)
     assert re.search(expect, err), err
 
 
