@@ -500,13 +500,13 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
 }
 
 EventAnswer PatternTree::scan(int level, const std::int32_t* index, const std::uint8_t* value, int m,
-                              std::int64_t min_replicates, QueryScratch& sc) const {
+                              std::int64_t min_replicates, QueryScratch& sc, bool stop_when_pure) const {
   const Level& L = levels_[static_cast<std::size_t>(level)];
   EventAnswer ans;
   sc.best.assign(root_counts_.begin(), root_counts_.end());
   ans.replicates = static_cast<std::int64_t>(centres_.size());
   sc.frontier.assign(1, 0);
-  return check_centres(L, index, value, m, 0, min_replicates, false, 0, ans, sc);
+  return check_centres(L, index, value, m, 0, min_replicates, stop_when_pure, 0, ans, sc);
 }
 
 }  // namespace sl

@@ -91,15 +91,16 @@ class PatternTree {
   EventAnswer query(int level, const std::int32_t* index, const std::uint8_t* value, int m,
                     std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
 
-  // Same answer as query, by checking every centre on the TI (the reference path).
+  // Same answer as query, by checking every centre on the bit planes (the reference path). Here
+  // `index` may come in any order: nodes are added, and dropped from the last, in the order given.
   EventAnswer scan(int level, const std::int32_t* index, const std::uint8_t* value, int m,
-                   std::int64_t min_replicates, QueryScratch& scratch) const;
+                   std::int64_t min_replicates, QueryScratch& scratch, bool stop_when_pure = false) const;
 
   struct Level;
   // The variant of `level` that takes the template nodes in `order` (a permutation of 0..D-1), built
   // on first request and kept while the tree lives; thread-safe (requests from several threads build
   // in parallel). Returns nullptr when building it would pass the memory limit (the caller then
-  // uses the level's own tree: same counts, slower).
+  // answers the same events with `scan`, nodes in the same order: same counts, slower).
   const Level* ordered_variant(int level, const std::vector<std::int32_t>& order) const;
   // query() on a variant: `index` holds strictly increasing positions in the variant's order.
   EventAnswer query_variant(const Level& variant, const std::int32_t* index, const std::uint8_t* value, int m,

@@ -3,9 +3,10 @@
 Training-image data events are counted once, by template node, into one tree per multiple-grid
 level (the search-tree approach of Strebelle 2002, Mathematical Geology 34(1)); a simulation then
 visits the grid level by level, coarsest first, reads each node's data event, asks the tree for the
-conditional probability of each category (dropping the farthest informed nodes while too few
-replicates match), merges soft data by the tau model, optionally steers toward target
-proportions, and draws the category. Everything runs in the compiled core, off the GIL.
+conditional probability of each category (dropping informed nodes while too few replicates
+match: the farthest first, or on finer grids those informed last in the grid's refinement),
+merges soft data by the tau model, optionally steers toward target proportions, and draws the
+category. Everything runs in the compiled core, off the GIL.
 """
 
 from __future__ import annotations
@@ -55,7 +56,8 @@ class PatternTree:
         Number of multiple grids; one tree per level.
     min_replicates : int, default 1
         Fewest training-image replicates a data event must have; below it, informed nodes are
-        dropped from the last in template order.
+        dropped from the last in template order (in simulation, on levels with a coarser one, from
+        the last in the order the level's cells are refined: see DEVELOPERS.md).
     memory_limit : int, optional
         Bytes the trees may use; default half the physical memory. A build that would need more
         stops with `MemoryLimitError` before exhausting the machine.
