@@ -32,6 +32,7 @@
 
 #include <cstdint>
 #include <memory>
+#include <mutex>
 #include <vector>
 
 #include "core/grid.hpp"
@@ -63,12 +64,24 @@ struct QueryScratch {
   std::vector<std::uint64_t> word_alive, next_alive;  // their centres still matching
 };
 
+// Bytes that one or more trees may hold together (their trees, bit planes and ordered variants).
+struct MemoryBudget {
+  explicit MemoryBudget(std::int64_t limit_bytes) : limit(limit_bytes) {}
+  std::mutex mutex;
+  const std::int64_t limit;
+  std::int64_t used = 0;  // guarded by mutex
+};
+
 class PatternTree {
  public:
   // Builds one tree per level 0..levels-1 by scanning the TI with the template times 2**level.
   // Throws ParameterError for an unusable TI or template and MemoryLimitError when the trees would
   // need more than memory_limit bytes.
   PatternTree(CategoricalImage ti, const Template& tpl, int levels, std::int64_t memory_limit);
+  // The same, drawing on a budget shared with other trees (e.g. one training image turned for
+  // several rotation classes): all of them together stay within budget->limit.
+  PatternTree(CategoricalImage ti, const Template& tpl, int levels, std::shared_ptr<MemoryBudget> budget);
+  const std::shared_ptr<MemoryBudget>& budget() const noexcept { return budget_; }
 
   int levels() const noexcept { return static_cast<int>(levels_.size()); }
   int categories() const noexcept { return ti_.categories; }
@@ -147,7 +160,7 @@ class PatternTree {
   std::vector<std::int64_t> centres_;      // padded flat index of every unmasked TI cell
   std::vector<std::int64_t> root_counts_;  // per category
   std::vector<Level> levels_;
-  std::int64_t memory_limit_ = 0;
+  std::shared_ptr<MemoryBudget> budget_;
   // Ordered variants, built on request.
   struct Variants;
   std::shared_ptr<Variants> variants_;

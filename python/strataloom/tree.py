@@ -11,6 +11,7 @@ category. Everything runs in the compiled core, off the GIL.
 
 from __future__ import annotations
 
+import copy
 from collections.abc import Callable, Sequence
 from typing import Any
 
@@ -18,6 +19,7 @@ import numpy as np
 
 from . import _core
 from . import _validate as v
+from .errors import MemoryLimitError
 from .geometry import local_geometry, turn_matrix
 from .template import Template
 
@@ -97,8 +99,22 @@ class PatternTree:
             return self
         if key not in self._turned:
             turned = turned_image(np.where(self._codes == 255, -1, self._codes.astype(np.int16)), *key)
-            self._turned[key] = PatternTree(turned, self._template, levels=self._tree.levels,
-                                            min_replicates=self._min_replicates, memory_limit=self._limit)
+            tree = copy.copy(self)  # same template, levels and settings
+            tree.training_image = turned
+            tree._codes = _as_codes(turned)
+            tree._turned = {}
+            tree.last_stats = None
+            try:
+                # One memory_limit for this tree and every turned one, ordered trees included.
+                tree._tree = _core.PatternTree(np.ascontiguousarray(tree._codes), self.categories,
+                                               np.ascontiguousarray(self._template.offsets), self._tree.levels,
+                                               self._limit, share_budget_with=self._tree)
+            except MemoryLimitError as exc:
+                raise MemoryLimitError(
+                    f"{exc} The trees of the training image turned and stretched for {len(self._turned) + 1} "
+                    "rotation and affinity classes share it with the tree itself: use fewer classes (a "
+                    "constant, or a map with fewer distinct values) or raise memory_limit.") from None
+            self._turned[key] = tree
         return self._turned[key]
 
     # ----------------------------------------------------------------- description
@@ -120,8 +136,10 @@ class PatternTree:
 
     @property
     def memory_bytes(self) -> int:
-        """Bytes held by the trees and the padded training image."""
-        return int(self._tree.memory_bytes)
+        """Bytes held by the trees, the padded training image, the ordered trees built for
+        simulation and the trees of turned training images (rotation and affinity classes), which
+        all share ``memory_limit``."""
+        return int(self._tree.memory_bytes) + sum(t.memory_bytes for t in self._turned.values())
 
     @property
     def bytes_per_node(self) -> float:
