@@ -141,9 +141,10 @@ def _field(shape: tuple[int, int], seed: int) -> np.ndarray:
 
 def test_downscaling_honours_block_means_and_fine_variogram():
     # Invented data (Gaussian random fields). Targets from the issue: simulated block means
-    # correlate >= 0.9 with the given coarse field, and the fine-scale variogram is within 20 % of
-    # the truth's at the shortest lag along both axes (Goovaerts 1997 semivariogram). At lag 2 the
-    # simulations come out 20-26 % low (measured), so lag 2 is not asserted here.
+    # correlate >= 0.9 with the given coarse field, and the fine-scale semivariogram (Goovaerts
+    # 1997, eq. 2.1) is within 20 % of the truth's at short lags, here lags 1 and 2 along both axes.
+    # Measured: lag 1 +4 to +10 %, lag 2 -9 to -14 % (with the former linear coarse surface lag 2
+    # was 21-26 % low, so this fails on it); lag 4, not asserted, 11-14 % low.
     factor = 4
     fine_train = _field((128, 128), seed=1)
     truth = _field((64, 64), seed=2)
@@ -156,8 +157,30 @@ def test_downscaling_honours_block_means_and_fine_variogram():
         assert r >= 0.9
         assert np.std(sim) == pytest.approx(np.std(truth), rel=0.1)
         for axis in (0, 1):
-            assert _variogram(sim, 1, axis) == pytest.approx(_variogram(truth, 1, axis), rel=0.2)
+            for h in (1, 2):
+                got, want = _variogram(sim, h, axis), _variogram(truth, h, axis)
+                assert got == pytest.approx(want, rel=0.2), (axis, h, got / want - 1)
     exact = sl.downscale(
         coarse_train[:16, :16], fine_train[:64, :64], coarse[:8, :8], seed=3, match_block_means=True
     )[0]
     np.testing.assert_allclose(block_means(exact, factor), coarse[:8, :8], atol=1e-12)
+
+
+@pytest.mark.parametrize("shape, factor", [((16, 16), (4, 4)), ((3, 8, 8), (2, 4, 4)), ((1, 12), (4, 3))])
+def test_coarse_surface_is_smooth_and_keeps_block_means(shape, factor):
+    # The mean-preserving (pycnophylactic) property of Tobler (1979), "Smooth pycnophylactic
+    # interpolation for geographical regions", JASA 74: the spread field's block means are the
+    # coarse values. Invented data (white noise), plus a checkerboard, the hardest case to converge.
+    from strataloom.downscale import _spread
+
+    coarse = np.random.default_rng(0).standard_normal(shape)
+    board = (np.indices(shape).sum(axis=0) % 2).astype(np.float64)
+    for c in (coarse, board):
+        fine = _spread(c, factor)
+        assert fine.shape == tuple(n * k for n, k in zip(shape, factor, strict=True))
+        np.testing.assert_allclose(block_means(fine, factor), c, atol=1e-8)
+    # Smooth: no steps at block edges. Steps across block edges along x are on average at most
+    # twice those inside blocks (measured 1.2-1.5 here; a repeated field has none inside blocks).
+    steps = np.abs(np.diff(_spread(coarse, factor), axis=-1))
+    edge = np.arange(steps.shape[-1]) % factor[-1] == factor[-1] - 1
+    assert steps[..., edge].mean() < 2 * steps[..., ~edge].mean()
