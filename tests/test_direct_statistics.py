@@ -184,3 +184,27 @@ def test_coarse_surface_is_smooth_and_keeps_block_means(shape, factor):
     steps = np.abs(np.diff(_spread(coarse, factor), axis=-1))
     edge = np.arange(steps.shape[-1]) % factor[-1] == factor[-1] - 1
     assert steps[..., edge].mean() < 2 * steps[..., ~edge].mean()
+
+
+def _facies(seed: int) -> np.ndarray:
+    # Invented data: a Gaussian random field cut at its 75th percentile (25 % of code 1).
+    g = _field((128, 128), seed)
+    return (g > np.quantile(g, 0.75)).astype(np.int64)
+
+
+@pytest.mark.parametrize("seed", [1, 2])
+def test_categorical_proportions_are_reproduced(seed):
+    # Fact of the trade (common practice, no source): realizations of a stationary TI reproduce its
+    # category proportions. Tolerance 0.03 on the mean of 6 realizations (chosen by us; the
+    # standard error of that mean measured 0.004-0.009). Measured with the defaults (lag_power 2
+    # for a categorical TI): +0.007 and -0.018. With equal lag weights (the former default) the
+    # minority came out 0.045 and 0.073 low, which the second assertion checks.
+    ti = _facies(seed)
+    target = ti.mean()
+
+    def bias(**kw) -> float:
+        ds = sl.DirectSampler(ti, **kw)
+        return float(np.mean([(ds.simulate((96, 96), seed=100 * seed + k) == 1).mean() for k in range(6)])) - target
+
+    assert abs(bias()) <= 0.03
+    assert bias(lag_power=0.0) < -0.03
