@@ -208,3 +208,21 @@ def test_categorical_proportions_are_reproduced(seed):
 
     assert abs(bias()) <= 0.03
     assert bias(lag_power=0.0) < -0.03
+
+
+def test_three_class_proportions_keep_the_middle_class():
+    # Same fact of the trade (common practice, no source), on three equal classes cut from one
+    # invented Gaussian random field: the middle class lies in thin bands between the others.
+    # Tolerance 0.03 on the mean of 6 realizations (chosen by us). Measured with the defaults:
+    # 0.329-0.336 for every class; with equal lag weights the middle class came out 0.275-0.303.
+    g = _field((128, 128), seed=2)
+    ti = np.digitize(g, np.quantile(g, [1 / 3, 2 / 3])).astype(np.int8)
+    target = np.bincount(ti.ravel(), minlength=3) / ti.size
+
+    def proportions(**kw) -> np.ndarray:
+        ds = sl.DirectSampler(ti, **kw)
+        counts = [np.bincount(ds.simulate((96, 96), seed=20 + k).ravel(), minlength=3) for k in range(6)]
+        return np.mean(counts, axis=0) / 96**2
+
+    assert np.abs(proportions() - target).max() <= 0.03
+    assert proportions(lag_power=0.0)[1] < target[1] - 0.03
