@@ -143,3 +143,15 @@ class DyingFactory(FailingFactory):
 
     def __call__(self):
         return _FailingAdapter(self.inner(), self.bad_seed, die=True)
+
+
+def cli_check_error(capsys, path) -> str:
+    """`strataloom check --no-probe path` must fail with exit code 2 and one line, no traceback."""
+    from strataloom.cli import main
+
+    code = main(["check", "--no-probe", str(path)])
+    err = capsys.readouterr().err.strip()
+    assert code == 2
+    assert len(err.splitlines()) == 1, err
+    assert "Traceback" not in err
+    return err

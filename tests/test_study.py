@@ -13,7 +13,7 @@ import pytest
 import strataloom as sl
 from strataloom.cli import main
 from strataloom.study import key_lines, load_study
-from study_helpers import write_small_study
+from study_helpers import cli_check_error, write_small_study
 
 
 def _edit(path, old, new):
@@ -66,15 +66,6 @@ def test_key_lines_tables_arrays_and_inline():
     assert lines[("wells", 0, "file")] == 5
     assert lines[("wells", 1, "file")] == 7
     assert lines[("wells", 1, "columns", "facies")] == 8
-
-
-def _cli_error(capsys, path):
-    code = main(["check", "--no-probe", str(path)])
-    err = capsys.readouterr().err.strip()
-    assert code == 2
-    assert len(err.splitlines()) == 1, err
-    assert "Traceback" not in err
-    return err
 
 
 @pytest.mark.parametrize(
@@ -138,7 +129,7 @@ def _cli_error(capsys, path):
 def test_bad_study_one_line_naming_key_and_line(tmp_path, capsys, old, new, expect, line_of):
     p = write_small_study(tmp_path)
     _edit(p, old, new)
-    err = _cli_error(capsys, p)
+    err = cli_check_error(capsys, p)
     assert expect in err
     assert f"line {_line_of(p, line_of)}" in err
 
@@ -146,7 +137,7 @@ def test_bad_study_one_line_naming_key_and_line(tmp_path, capsys, old, new, expe
 def test_toml_syntax_error_names_line(tmp_path, capsys):
     p = write_small_study(tmp_path)
     _edit(p, "seed = 42", "seed = = 42")
-    err = _cli_error(capsys, p)
+    err = cli_check_error(capsys, p)
     assert "not valid TOML" in err and f"line {_line_of(p, 'seed = = 42')}" in err
 
 
@@ -188,7 +179,7 @@ def test_bad_data_files_one_line(tmp_path, capsys, setup, expect):
 
     p = write_small_study(tmp_path)
     setup(tmp_path)
-    err = _cli_error(capsys, p)
+    err = cli_check_error(capsys, p)
     assert re.search(expect, err), err
 
 
@@ -263,5 +254,5 @@ def test_training_image_from_builder_spec(tmp_path, capsys):
     with pytest.raises(sl.StudyError, match=r"holds codes \[0, 1, 2\].*codes \[0, 1\]"):
         read_training_image(s)
     p.write_text(p.read_text().replace('builder = "ti.toml"', 'file = "ti.npy"'))
-    err = _cli_error(capsys, p)
+    err = cli_check_error(capsys, p)
     assert "'training_image.seed' applies to a 'builder' spec only" in err

@@ -13,6 +13,7 @@ from strataloom.cli import main
 from strataloom.qc import check_run, local_azimuth, orientation_gap
 from strataloom.study import load_study
 from strataloom.workflow import run_study
+from study_helpers import cli_check_error
 from test_tree_geometry import angle_gap, azimuth_of_bands, straight_channels
 
 # Invented data (for the tests only): a straight-channel TI and a blob TI.
@@ -96,10 +97,12 @@ def test_study_with_rotation_and_zones_end_to_end(tmp_path, engine):
 
     sims = np.asarray(zarr.open_group(str(tmp_path / "run" / "realizations.zarr"), mode="r")["facies"])
     # Structure tensor via scipy.ndimage gradients (reference library): zone 0 (channels turned by
-    # 30 degrees) within 10 degrees of 30; zone 1 keeps its own TI's proportion (0.6) within 0.05.
+    # 30 degrees) within 10 degrees of 30; zone 1 keeps its own TI's proportion (0.6), not the
+    # channel TI's (0.42): within 0.09, as the mean of 2 realizations over this 48 x 24 zone varies
+    # with the seed (direct sampler, seeds 11-14: 0.55-0.67 measured).
     for r in sims:
         assert angle_gap(azimuth_of_bands(r[0, :, :36]), 30.0) < 10.0
-    assert abs(sims[:, 0, :, 40:].mean() - 0.6) < 0.05
+    assert abs(sims[:, 0, :, 40:].mean() - 0.6) < 0.09
     html = (tmp_path / "run" / "report.html").read_text()
     assert 'data-figure="orientation"' in html
     assert "Local orientation against the requested rotation" in html
@@ -121,15 +124,6 @@ def test_check_lists_geometry_and_zones(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "geometry: azimuth 30 deg, dip 0 deg, affinity (z, y, x) (1, 1, 1)" in out
     assert "zone 1: 0.38 of the grid, blobs.npy" in out
-
-
-def _cli_error(capsys, path):
-    code = main(["check", "--no-probe", str(path)])
-    err = capsys.readouterr().err.strip()
-    assert code == 2
-    assert len(err.splitlines()) == 1, err
-    assert "Traceback" not in err
-    return err
 
 
 @pytest.mark.parametrize(
@@ -163,7 +157,7 @@ def _cli_error(capsys, path):
 def test_bad_geometry_and_zone_keys(tmp_path, capsys, edit, expect):
     p = write_study(tmp_path)
     edit(tmp_path)
-    err = _cli_error(capsys, p)
+    err = cli_check_error(capsys, p)
     assert re.search(expect, err), err
 
 
