@@ -236,7 +236,7 @@ void bind_tree(py::module_& m) {
 
   py::class_<sl::PatternTree>(m, "PatternTree")
       .def(py::init([](const CArray<std::uint8_t>& codes, int categories, const CArray<std::int64_t>& offsets, int levels,
-                       std::int64_t memory_limit) {
+                       std::int64_t memory_limit, const sl::PatternTree* share_budget_with) {
              if (codes.ndim() != 3) throw sl::ParameterError("training_image", "must be a 3-D array.");
              sl::CategoricalImage ti;
              ti.shape = {codes.shape(0), codes.shape(1), codes.shape(2)};
@@ -244,9 +244,11 @@ void bind_tree(py::module_& m) {
              ti.categories = categories;
              sl::Template tpl(offsets_from(offsets, "template"));
              py::gil_scoped_release release;
+             if (share_budget_with) return new sl::PatternTree(std::move(ti), tpl, levels, share_budget_with->budget());
              return new sl::PatternTree(std::move(ti), tpl, levels, memory_limit);
            }),
-           py::arg("codes"), py::arg("categories"), py::arg("offsets"), py::arg("levels"), py::arg("memory_limit"))
+           py::arg("codes"), py::arg("categories"), py::arg("offsets"), py::arg("levels"), py::arg("memory_limit"),
+           py::arg("share_budget_with") = nullptr)
       .def_property_readonly("levels", &sl::PatternTree::levels)
       .def_property_readonly("categories", &sl::PatternTree::categories)
       .def_property_readonly("memory_bytes", &sl::PatternTree::memory_bytes)

@@ -65,6 +65,7 @@ def test_engine_matches_the_numpy_reference(name):
         scan_fraction=case["scan"],
         search_radius=(0, 3, 3),
         weights=weights,
+        lag_power=0.0,  # equal lag weights keep the distances exact in binary arithmetic
     )
     out, source = ds.simulate(gshape, hard=hard, seed=11, path=case["path"], return_source=True)
 
@@ -105,7 +106,8 @@ def test_turned_lags_match_the_numpy_reference(rotation, affinity):
     hard = np.where(rng.random(gshape) < 0.05, _dyadic(rng, gshape), np.nan)
     if rotation == "map":
         rotation = np.where(np.arange(13)[None, None, :] < 6, 20.0, 75.0) * np.ones(gshape)
-    ds = sl.DirectSampler(ti, neighbors=6, accept_distance=0.0, scan_fraction=0.5, search_radius=(0, 3, 3))
+    ds = sl.DirectSampler(ti, neighbors=6, accept_distance=0.0, scan_fraction=0.5, search_radius=(0, 3, 3),
+                          lag_power=0.0)  # equal lag weights: distances exact in binary arithmetic
     out, source = ds.simulate(gshape, hard=hard, seed=5, rotation=rotation, affinity=affinity, return_source=True)
     from strataloom.geometry import grid_to_ti, local_geometry
 
@@ -135,6 +137,7 @@ def test_auxiliary_variable_matches_the_reference():
         search_radius=2,
         auxiliary=["trend"],
         weights={"fine": 1.0, "trend": 3.0},
+        lag_power=0.0,  # equal lag weights keep the distances exact in binary arithmetic
     )
     aux = _dyadic(rng, gshape, levels=3)
     out, source = ds.simulate(gshape, auxiliary={"trend": aux}, seed=4, return_source=True)
@@ -176,7 +179,7 @@ def test_full_scan_with_zero_threshold_finds_a_zero_distance_match_when_one_exis
     for c in unknown:
         hard[c] = -1 if kind == "categorical" else np.nan
     ds = sl.DirectSampler(
-        ti, neighbors=8, accept_distance=0.0, scan_fraction=1.0, search_radius=(0, 2, 2)
+        ti, neighbors=8, accept_distance=0.0, scan_fraction=1.0, search_radius=(0, 2, 2), lag_power=0.0
     )
     _, source = ds.simulate(gshape, hard=hard, seed=5, return_source=True)
     offsets = ds.template.offsets

@@ -141,9 +141,10 @@ def _field(shape: tuple[int, int], seed: int) -> np.ndarray:
 
 def test_downscaling_honours_block_means_and_fine_variogram():
     # Invented data (Gaussian random fields). Targets from the issue: simulated block means
-    # correlate >= 0.9 with the given coarse field, and the fine-scale variogram is within 20 % of
-    # the truth's at the shortest lag along both axes (Goovaerts 1997 semivariogram). At lag 2 the
-    # simulations come out 20-26 % low (measured), so lag 2 is not asserted here.
+    # correlate >= 0.9 with the given coarse field, and the fine-scale semivariogram (Goovaerts
+    # 1997, eq. 2.1) is within 20 % of the truth's at short lags, here lags 1 and 2 along both axes.
+    # Measured: lag 1 +4 to +10 %, lag 2 -9 to -14 % (with the former linear coarse surface lag 2
+    # was 21-26 % low, so this fails on it); lag 4, not asserted, 11-14 % low.
     factor = 4
     fine_train = _field((128, 128), seed=1)
     truth = _field((64, 64), seed=2)
@@ -156,8 +157,72 @@ def test_downscaling_honours_block_means_and_fine_variogram():
         assert r >= 0.9
         assert np.std(sim) == pytest.approx(np.std(truth), rel=0.1)
         for axis in (0, 1):
-            assert _variogram(sim, 1, axis) == pytest.approx(_variogram(truth, 1, axis), rel=0.2)
+            for h in (1, 2):
+                got, want = _variogram(sim, h, axis), _variogram(truth, h, axis)
+                assert got == pytest.approx(want, rel=0.2), (axis, h, got / want - 1)
     exact = sl.downscale(
         coarse_train[:16, :16], fine_train[:64, :64], coarse[:8, :8], seed=3, match_block_means=True
     )[0]
     np.testing.assert_allclose(block_means(exact, factor), coarse[:8, :8], atol=1e-12)
+
+
+@pytest.mark.parametrize("shape, factor", [((16, 16), (4, 4)), ((3, 8, 8), (2, 4, 4)), ((1, 12), (4, 3))])
+def test_coarse_surface_is_smooth_and_keeps_block_means(shape, factor):
+    # The mean-preserving (pycnophylactic) property of Tobler (1979), "Smooth pycnophylactic
+    # interpolation for geographical regions", JASA 74: the spread field's block means are the
+    # coarse values. Invented data (white noise), plus a checkerboard, the hardest case to converge.
+    from strataloom.downscale import _spread
+
+    coarse = np.random.default_rng(0).standard_normal(shape)
+    board = (np.indices(shape).sum(axis=0) % 2).astype(np.float64)
+    for c in (coarse, board):
+        fine = _spread(c, factor)
+        assert fine.shape == tuple(n * k for n, k in zip(shape, factor, strict=True))
+        np.testing.assert_allclose(block_means(fine, factor), c, atol=1e-8)
+    # Smooth: no steps at block edges. Steps across block edges along x are on average at most
+    # twice those inside blocks (measured 1.2-1.5 here; a repeated field has none inside blocks).
+    steps = np.abs(np.diff(_spread(coarse, factor), axis=-1))
+    edge = np.arange(steps.shape[-1]) % factor[-1] == factor[-1] - 1
+    assert steps[..., edge].mean() < 2 * steps[..., ~edge].mean()
+
+
+def _facies(seed: int) -> np.ndarray:
+    # Invented data: a Gaussian random field cut at its 75th percentile (25 % of code 1).
+    g = _field((128, 128), seed)
+    return (g > np.quantile(g, 0.75)).astype(np.int64)
+
+
+@pytest.mark.parametrize("seed", [1, 2])
+def test_categorical_proportions_are_reproduced(seed):
+    # Fact of the trade (common practice, no source): realizations of a stationary TI reproduce its
+    # category proportions. Tolerance 0.03 on the mean of 6 realizations (chosen by us; the
+    # standard error of that mean measured 0.004-0.009). Measured with the defaults (lag_power 2
+    # for a categorical TI): +0.007 and -0.018. With equal lag weights (the former default) the
+    # minority came out 0.045 and 0.073 low, which the second assertion checks.
+    ti = _facies(seed)
+    target = ti.mean()
+
+    def bias(**kw) -> float:
+        ds = sl.DirectSampler(ti, **kw)
+        return float(np.mean([(ds.simulate((96, 96), seed=100 * seed + k) == 1).mean() for k in range(6)])) - target
+
+    assert abs(bias()) <= 0.03
+    assert bias(lag_power=0.0) < -0.03
+
+
+def test_three_class_proportions_keep_the_middle_class():
+    # Same fact of the trade (common practice, no source), on three equal classes cut from one
+    # invented Gaussian random field: the middle class lies in thin bands between the others.
+    # Tolerance 0.03 on the mean of 6 realizations (chosen by us). Measured with the defaults:
+    # 0.329-0.336 for every class; with equal lag weights the middle class came out 0.275-0.303.
+    g = _field((128, 128), seed=2)
+    ti = np.digitize(g, np.quantile(g, [1 / 3, 2 / 3])).astype(np.int8)
+    target = np.bincount(ti.ravel(), minlength=3) / ti.size
+
+    def proportions(**kw) -> np.ndarray:
+        ds = sl.DirectSampler(ti, **kw)
+        counts = [np.bincount(ds.simulate((96, 96), seed=20 + k).ravel(), minlength=3) for k in range(6)]
+        return np.mean(counts, axis=0) / 96**2
+
+    assert np.abs(proportions() - target).max() <= 0.03
+    assert proportions(lag_power=0.0)[1] < target[1] - 0.03

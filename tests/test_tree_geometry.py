@@ -147,3 +147,20 @@ def test_dip_needs_a_3d_training_image(channel_tree):
     # A flat TI cannot be tipped: refused rather than silently dropped.
     with pytest.raises(ValueError, match="2-D training image"):
         channel_tree.simulate((4, 20, 20), rotation=(0.0, 20.0))
+
+
+def test_turned_trees_share_the_memory_limit():
+    # The trees of the turned training images and the ordered trees built while simulating all
+    # draw on the one memory_limit of the tree they come from.
+    ti, tpl = straight_channels(), sl.Template.ellipsoid((0, 4, 4), max_nodes=40)
+    alone = sl.PatternTree(ti, tpl, levels=3).memory_bytes
+    limit = int(3.5 * alone)
+    tree = sl.PatternTree(ti, tpl, levels=3, memory_limit=limit)
+    two_classes = np.zeros((48, 48))
+    two_classes[:, 24:] = 60.0
+    tree.simulate((48, 48), seed=1, rotation=two_classes)
+    assert alone < tree.memory_bytes <= limit
+    fan = np.repeat(np.arange(0.0, 180.0, 10.0), 4)[None, :].repeat(24, axis=0)  # 18 classes
+    with pytest.raises(sl.MemoryLimitError, match="rotation and affinity classes"):
+        tree.simulate(fan.shape, seed=1, rotation=fan)
+    assert tree.memory_bytes <= limit

@@ -193,3 +193,18 @@ def test_three_level_3d_realizations_keep_the_ti_variogram():
     # uncorrelated noise of the same proportion is far off: the check can fail
     noise = (rng.random(ti.shape) < ti.mean()).astype(np.int8)
     assert np.all(gammas([noise])[:, 0] > 2 * want[:, 0])
+
+
+def test_results_do_not_depend_on_which_ordered_trees_fit_in_memory():
+    # Staged levels query ordered trees when they fit in memory_limit and scan the bit planes
+    # otherwise; both count the same events, so a realization must not depend on the limit (or on
+    # the machine whose memory sets the default).
+    ti = blob_ti((1, 80, 80), sand=0.3, sigma=2.0)
+    tpl = sl.Template.ellipsoid((0, 3, 3), max_nodes=24)
+    roomy = sl.PatternTree(ti, tpl, levels=3, min_replicates=3)
+    want = roomy.simulate((60, 60), seed=5, threads=1)
+    assert roomy.memory_bytes > sl.PatternTree(ti, tpl, levels=3).memory_bytes  # ordered trees were built
+    tight = sl.PatternTree(ti, tpl, levels=3, min_replicates=3, memory_limit=roomy.memory_bytes // 2)
+    for threads in (1, 2):
+        np.testing.assert_array_equal(tight.simulate((60, 60), seed=5, threads=threads), want)
+    assert tight.memory_bytes < roomy.memory_bytes  # some ordered trees did not fit

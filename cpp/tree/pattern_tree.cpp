@@ -73,20 +73,38 @@ std::int64_t default_memory_limit() {
 
 struct PatternTree::Variants {
   std::mutex mutex;
-  std::int64_t used = 0;  // bytes of the trees and variants so far
   // nullptr: over the memory limit. Map nodes do not move, so handed-out pointers stay valid.
   std::map<std::pair<int, std::vector<std::int32_t>>, std::unique_ptr<Level>> built;
 };
 
+namespace {
+// Bytes held by one level's arrays: what memory_bytes reports and the budget counts.
+std::int64_t level_bytes(const PatternTree::Level& L) {
+  return static_cast<std::int64_t>(
+      (L.first_child.size() + L.first_centre.size() + L.counts.size() + L.depth_start.size() + L.order.size()) *
+          sizeof(std::uint32_t) +
+      (L.sorted.size() + L.delta.size()) * sizeof(std::int64_t) + (L.planes.size() + L.category.size()) * sizeof(std::uint64_t));
+}
+
+std::shared_ptr<MemoryBudget> new_budget(std::int64_t memory_limit) {
+  require(memory_limit > 0, "memory_limit", "must be a positive number of bytes.");
+  return std::make_shared<MemoryBudget>(memory_limit);
+}
+}  // namespace
+
 PatternTree::PatternTree(CategoricalImage ti, const Template& tpl, int levels, std::int64_t memory_limit)
-    : ti_(std::move(ti)), template_(tpl) {
+    : PatternTree(std::move(ti), tpl, levels, new_budget(memory_limit)) {}
+
+PatternTree::PatternTree(CategoricalImage ti, const Template& tpl, int levels, std::shared_ptr<MemoryBudget> budget)
+    : ti_(std::move(ti)), template_(tpl), budget_(std::move(budget)) {
+  require(budget_ != nullptr, "memory_limit", "needs a memory budget.");
+  const std::int64_t memory_limit = budget_->limit;
   const Ijk& n = ti_.shape;
   require(n[0] >= 1 && n[1] >= 1 && n[2] >= 1, "training_image", "must not be empty.");
   require(static_cast<Index>(ti_.codes.size()) == n[0] * n[1] * n[2], "training_image",
           "has a data size that does not match its shape.");
   require(ti_.categories >= 1 && ti_.categories <= 254, "training_image", "must hold codes 0..K-1 with K <= 254.");
   require(levels >= 1 && levels <= 12, "levels", "must be an integer in [1, 12]; got " + std::to_string(levels) + ".");
-  require(memory_limit > 0, "memory_limit", "must be a positive number of bytes.");
   require(template_.size() <= 4096, "template", "must hold at most 4096 nodes for a pattern tree.");
   const Offset reach = template_.reach();
   const char* axes[3] = {"z", "y", "x"};
@@ -116,17 +134,29 @@ PatternTree::PatternTree(CategoricalImage ti, const Template& tpl, int levels, s
       }
   require(!centres_.empty(), "training_image", "is entirely masked; at least one cell must hold a code >= 0.");
   require(centres_.size() < (std::size_t{1} << 32) - 1, "training_image", "has more than 2**32 - 2 informed cells.");
-  std::int64_t used = static_cast<std::int64_t>(padded_.size() + centres_.size() * sizeof(std::int64_t));
+  std::int64_t others = 0;  // bytes already held by trees sharing the budget
+  {
+    std::lock_guard<std::mutex> lock(budget_->mutex);
+    others = budget_->used;
+  }
+  std::int64_t used = others + static_cast<std::int64_t>(padded_.size() + centres_.size() * sizeof(std::int64_t));
   if (used > memory_limit)
     throw MemoryLimitError("The memory_limit of " + mib(memory_limit) + " is below the " + mib(used) +
-                           " the training image alone needs; raise memory_limit or use a smaller training image.");
+                           " the training image needs" + (others ? " beside the trees built before it" : "") +
+                           "; raise memory_limit or use a smaller training image.");
   std::vector<std::int32_t> identity(template_.size());
   for (std::size_t i = 0; i < identity.size(); ++i) identity[i] = static_cast<std::int32_t>(i);
   for (int level = 0; level < levels; ++level)
     levels_.push_back(build_level(level, identity, node_cap(), memory_limit, used));
-  memory_limit_ = memory_limit;
+  {
+    std::lock_guard<std::mutex> lock(budget_->mutex);
+    // Trees built meanwhile on the same budget count too.
+    if (budget_->used + (used - others) > memory_limit)
+      throw MemoryLimitError("The pattern trees sharing a memory_limit of " + mib(memory_limit) +
+                             " would need more; raise memory_limit or use a template with fewer nodes.");
+    budget_->used += used - others;
+  }
   variants_ = std::make_shared<Variants>();
-  variants_->used = used;
 }
 
 std::size_t PatternTree::node_cap() const {
@@ -148,26 +178,35 @@ const PatternTree::Level* PatternTree::ordered_variant(int level, const std::vec
   }
   Variants& v = *variants_;
   auto key = std::make_pair(level, order);
-  std::int64_t used = 0;
   {
     std::lock_guard<std::mutex> lock(v.mutex);
     if (auto it = v.built.find(key); it != v.built.end()) return it->second.get();
-    used = v.used;
+  }
+  std::int64_t used = 0;
+  {
+    std::lock_guard<std::mutex> lock(budget_->mutex);
+    used = budget_->used;
   }
   // Built outside the lock, so several variants can be built at once; the memory limit is checked
   // again when the result is kept.
   std::unique_ptr<Level> made;
   const std::int64_t start = used;
   try {
-    made = std::make_unique<Level>(build_level(level, order, node_cap(), memory_limit_, used));
+    made = std::make_unique<Level>(build_level(level, order, node_cap(), budget_->limit, used));
   } catch (const MemoryLimitError&) {
-    // Over the limit: the caller uses the level's own tree.
+    // Over the limit: the caller scans the bit planes instead (same counts, slower).
   }
   const std::int64_t bytes = used - start;
   std::lock_guard<std::mutex> lock(v.mutex);
   if (auto it = v.built.find(key); it != v.built.end()) return it->second.get();  // another thread was first
-  if (made && v.used + bytes > memory_limit_) made.reset();  // variants kept meanwhile took the room
-  if (made) v.used += bytes;
+  if (made) {
+    std::lock_guard<std::mutex> budget_lock(budget_->mutex);
+    if (budget_->used + bytes > budget_->limit) {
+      made.reset();  // variants or trees kept meanwhile took the room
+    } else {
+      budget_->used += bytes;
+    }
+  }
   const Level* out = made.get();
   v.built.emplace(std::move(key), std::move(made));
   return out;
@@ -192,18 +231,19 @@ PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t>
     L.delta[i] = ((Index{o[0]} << level) * padded_shape_[1] + (Index{o[1]} << level)) * padded_shape_[2] +
                  (Index{o[2]} << level);
   }
+  const std::int64_t used_before = used;
   const std::int64_t bytes_per_node = static_cast<std::int64_t>(4 * K + 8);
   // Working memory of the build: the centre order, the groups of one depth and the next, and the
   // sorted centres kept.
   const std::int64_t work = static_cast<std::int64_t>(N * (3 * sizeof(std::uint32_t) + 2 * sizeof(std::int64_t) + 1));
-  auto check = [&](std::size_t nodes) {
-    const std::int64_t need = used + static_cast<std::int64_t>(nodes) * bytes_per_node + work;
+  auto check_need = [&](std::int64_t need) {
     if (need > memory_limit)
       throw MemoryLimitError("Building the pattern tree of level " + std::to_string(level) + " needs more than " +
                              mib(need) + ", above the memory_limit of " + mib(memory_limit) +
                              ". Use a template with fewer nodes (max_nodes), fewer levels or a smaller "
                              "training image, or raise memory_limit.");
   };
+  auto check = [&](std::size_t nodes) { check_need(used + static_cast<std::int64_t>(nodes) * bytes_per_node + work); };
   // Root.
   L.first_centre.push_back(0);
   L.counts.resize(K);
@@ -318,11 +358,11 @@ PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t>
     }
     L.category[w * K + padded[c]] |= bit;
   }
-  used += plane_bytes;
   L.first_centre.shrink_to_fit();
   L.counts.shrink_to_fit();
   L.first_child.shrink_to_fit();
-  used += static_cast<std::int64_t>(total) * bytes_per_node + static_cast<std::int64_t>(N * sizeof(std::int64_t));
+  used = used_before + level_bytes(L);  // the estimates above were for the checks during the build
+  check_need(used);
   return L;
 }
 
@@ -333,18 +373,11 @@ std::int64_t PatternTree::node_count(int level) const {
 }
 
 std::int64_t PatternTree::memory_bytes() const {
-  auto bytes = [](const Level& L) {
-    return static_cast<std::int64_t>(
-        (L.first_child.size() + L.first_centre.size() + L.counts.size() + L.depth_start.size() + L.order.size()) *
-            sizeof(std::uint32_t) +
-        (L.sorted.size() + L.delta.size()) * sizeof(std::int64_t) +
-        (L.planes.size() + L.category.size()) * sizeof(std::uint64_t));
-  };
   std::int64_t b = static_cast<std::int64_t>(padded_.size() + centres_.size() * sizeof(std::int64_t));
-  for (const auto& L : levels_) b += bytes(L);
+  for (const auto& L : levels_) b += level_bytes(L);
   std::lock_guard<std::mutex> lock(variants_->mutex);
   for (const auto& [key, L] : variants_->built)
-    if (L) b += bytes(*L);
+    if (L) b += level_bytes(*L);
   return b;
 }
 
@@ -500,13 +533,13 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
 }
 
 EventAnswer PatternTree::scan(int level, const std::int32_t* index, const std::uint8_t* value, int m,
-                              std::int64_t min_replicates, QueryScratch& sc) const {
+                              std::int64_t min_replicates, QueryScratch& sc, bool stop_when_pure) const {
   const Level& L = levels_[static_cast<std::size_t>(level)];
   EventAnswer ans;
   sc.best.assign(root_counts_.begin(), root_counts_.end());
   ans.replicates = static_cast<std::int64_t>(centres_.size());
   sc.frontier.assign(1, 0);
-  return check_centres(L, index, value, m, 0, min_replicates, false, 0, ans, sc);
+  return check_centres(L, index, value, m, 0, min_replicates, stop_when_pure, 0, ans, sc);
 }
 
 }  // namespace sl

@@ -32,6 +32,7 @@
 
 #include <cstdint>
 #include <memory>
+#include <mutex>
 #include <vector>
 
 #include "core/grid.hpp"
@@ -63,12 +64,24 @@ struct QueryScratch {
   std::vector<std::uint64_t> word_alive, next_alive;  // their centres still matching
 };
 
+// Bytes that one or more trees may hold together (their trees, bit planes and ordered variants).
+struct MemoryBudget {
+  explicit MemoryBudget(std::int64_t limit_bytes) : limit(limit_bytes) {}
+  std::mutex mutex;
+  const std::int64_t limit;
+  std::int64_t used = 0;  // guarded by mutex
+};
+
 class PatternTree {
  public:
   // Builds one tree per level 0..levels-1 by scanning the TI with the template times 2**level.
   // Throws ParameterError for an unusable TI or template and MemoryLimitError when the trees would
   // need more than memory_limit bytes.
   PatternTree(CategoricalImage ti, const Template& tpl, int levels, std::int64_t memory_limit);
+  // The same, drawing on a budget shared with other trees (e.g. one training image turned for
+  // several rotation classes): all of them together stay within budget->limit.
+  PatternTree(CategoricalImage ti, const Template& tpl, int levels, std::shared_ptr<MemoryBudget> budget);
+  const std::shared_ptr<MemoryBudget>& budget() const noexcept { return budget_; }
 
   int levels() const noexcept { return static_cast<int>(levels_.size()); }
   int categories() const noexcept { return ti_.categories; }
@@ -91,15 +104,16 @@ class PatternTree {
   EventAnswer query(int level, const std::int32_t* index, const std::uint8_t* value, int m,
                     std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
 
-  // Same answer as query, by checking every centre on the TI (the reference path).
+  // Same answer as query, by checking every centre on the bit planes (the reference path). Here
+  // `index` may come in any order: nodes are added, and dropped from the last, in the order given.
   EventAnswer scan(int level, const std::int32_t* index, const std::uint8_t* value, int m,
-                   std::int64_t min_replicates, QueryScratch& scratch) const;
+                   std::int64_t min_replicates, QueryScratch& scratch, bool stop_when_pure = false) const;
 
   struct Level;
   // The variant of `level` that takes the template nodes in `order` (a permutation of 0..D-1), built
   // on first request and kept while the tree lives; thread-safe (requests from several threads build
   // in parallel). Returns nullptr when building it would pass the memory limit (the caller then
-  // uses the level's own tree: same counts, slower).
+  // answers the same events with `scan`, nodes in the same order: same counts, slower).
   const Level* ordered_variant(int level, const std::vector<std::int32_t>& order) const;
   // query() on a variant: `index` holds strictly increasing positions in the variant's order.
   EventAnswer query_variant(const Level& variant, const std::int32_t* index, const std::uint8_t* value, int m,
@@ -146,7 +160,7 @@ class PatternTree {
   std::vector<std::int64_t> centres_;      // padded flat index of every unmasked TI cell
   std::vector<std::int64_t> root_counts_;  // per category
   std::vector<Level> levels_;
-  std::int64_t memory_limit_ = 0;
+  std::shared_ptr<MemoryBudget> budget_;
   // Ordered variants, built on request.
   struct Variants;
   std::shared_ptr<Variants> variants_;

@@ -152,9 +152,13 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
 
   // Per (tree, parity class) at the current level: the ordered variant to query and its node order
   // (variant -1: the level's own tree, nodes in template order).
+  // An empty order: the level's own tree, nodes in template order. An order without a variant
+  // (over memory_limit): the same events answered by scanning the bit planes, so results never
+  // depend on which variants fit.
   struct StageQuery {
     const PatternTree::Level* variant = nullptr;
-    std::vector<std::int32_t> order;
+    std::vector<std::int32_t> order;     // template index at each query position
+    std::vector<std::int32_t> position;  // query position of each template index
   };
   std::vector<StageQuery> stage_query(trees.size() * 8);
   int current_step_shift = 0;
@@ -211,7 +215,11 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
         std::vector<std::int32_t> order = stage_order(trees[t]->base_template(), p);
         bool identity = true;
         for (std::size_t i = 0; i < order.size(); ++i) identity = identity && order[i] == static_cast<std::int32_t>(i);
-        if (!identity) stage_query[t * 8 + static_cast<std::size_t>(p)].order = std::move(order);
+        if (identity) continue;
+        StageQuery& q = stage_query[t * 8 + static_cast<std::size_t>(p)];
+        q.position.assign(order.size(), 0);
+        for (std::size_t i = 0; i < order.size(); ++i) q.position[static_cast<std::size_t>(order[i])] = static_cast<std::int32_t>(i);
+        q.order = std::move(order);
       }
     }
     // Build (or find) the ordered trees of this level, one per worker at a time.
@@ -228,7 +236,6 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
             for (std::size_t j; !build_ctl.cancelled() && (j = next.fetch_add(1)) < wanted.size();) {
               StageQuery& q = stage_query[wanted[j]];
               q.variant = trees[wanted[j] / 8]->ordered_variant(level, q.order);
-              if (!q.variant) q.order.clear();
             }
           },
           build_ctl, [&](std::int64_t, std::int64_t) { return !poll || poll(ctl.done.load(), ctl.total); });
@@ -247,11 +254,11 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       const std::size_t zone_id = zone.empty() ? 0 : zone[static_cast<std::size_t>(cell)];
       const std::vector<Offset>& offsets = t.base_template().offsets();
       const StageQuery& sq = stage_query[zone_id * 8 + static_cast<std::size_t>(staged ? parity_of_cell(cell) : 0)];
-      const std::int32_t* order = sq.variant ? sq.order.data() : nullptr;
-      // Data event: informed template nodes in query order, up to the cap on conditioning nodes.
+      // Data event: the informed template nodes nearest first (template order), up to the cap on
+      // conditioning nodes.
       int m = 0;
       for (std::size_t i = 0; i < offsets.size() && m < cap; ++i) {
-        const Offset& o = offsets[order ? static_cast<std::size_t>(order[i]) : i];
+        const Offset& o = offsets[i];
         const Ijk q{c[0] + Index{o[0]} * step, c[1] + Index{o[1]} * step, c[2] + Index{o[2]} * step};
         if (!grid.contains(q)) continue;
         const std::int16_t v = sim[static_cast<std::size_t>(grid.index(q))];
@@ -260,10 +267,30 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
         w.value[static_cast<std::size_t>(m)] = static_cast<std::uint8_t>(v);
         ++m;
       }
+      // A staged class queries its nodes in stage order (positions, increasing): insertion sort, as
+      // events are short and mostly in order already.
+      if (!sq.order.empty()) {
+        for (int a = 0; a < m; ++a) {
+          const std::int32_t rank = sq.position[static_cast<std::size_t>(w.index[static_cast<std::size_t>(a)])];
+          const std::uint8_t val = w.value[static_cast<std::size_t>(a)];
+          int b = a;
+          for (; b > 0 && w.index[static_cast<std::size_t>(b - 1)] > rank; --b) {
+            w.index[static_cast<std::size_t>(b)] = w.index[static_cast<std::size_t>(b - 1)];
+            w.value[static_cast<std::size_t>(b)] = w.value[static_cast<std::size_t>(b - 1)];
+          }
+          w.index[static_cast<std::size_t>(b)] = rank;
+          w.value[static_cast<std::size_t>(b)] = val;
+        }
+        // Without its ordered tree, the same nodes in the same order go to the bit planes.
+        if (!sq.variant)
+          for (int a = 0; a < m; ++a)
+            w.index[static_cast<std::size_t>(a)] = sq.order[static_cast<std::size_t>(w.index[static_cast<std::size_t>(a)])];
+      }
       const double* prior = priors.data() + zone_id * Ks;
       const EventAnswer ans =
-          sq.variant ? t.query_variant(*sq.variant, w.index.data(), w.value.data(), m, opt.min_replicates, true, w.scratch)
-                          : t.query(level, w.index.data(), w.value.data(), m, opt.min_replicates, true, w.scratch);
+          sq.variant       ? t.query_variant(*sq.variant, w.index.data(), w.value.data(), m, opt.min_replicates, true, w.scratch)
+          : !sq.order.empty() ? t.scan(level, w.index.data(), w.value.data(), m, opt.min_replicates, w.scratch, true)
+                              : t.query(level, w.index.data(), w.value.data(), m, opt.min_replicates, true, w.scratch);
       w.informed += m;
       w.kept += ans.kept;
       w.scans += ans.scanned;

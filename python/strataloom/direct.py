@@ -73,6 +73,16 @@ class _Real:
 
 
 @dataclass(frozen=True)
+class _Optional:
+    """None (a default chosen at simulation time) or a value checked by ``item``."""
+
+    item: Any
+
+    def check(self, value: Any, name: str, names: list[str]) -> Any:
+        return None if value is None else self.item.check(value, name, names)
+
+
+@dataclass(frozen=True)
 class _Radius:
     """None, one number for every axis the TI varies along, (ry, rx) or (rz, ry, rx)."""
 
@@ -165,7 +175,7 @@ _CONSTRAINTS: dict[str, Any] = {
     "scan_fraction": _Real(0.0, 1.0, low_open=True),
     "search_radius": _Radius(),
     "weights": _PerVariable(_Real(0.0, 1e6, low_open=True)),
-    "lag_power": _Real(0.0, 10.0),
+    "lag_power": _Optional(_Real(0.0, 10.0)),
     "kinds": _PerVariable(_Choice(_KINDS)),
     "auxiliary": _Names(),
 }
@@ -209,9 +219,20 @@ class DirectSampler:
         cells (8 for a 3-D TI), less where the TI is shorter.
     weights : float, sequence or mapping of float, optional
         Positive weight of each variable in the combined distance (default 1 each).
-    lag_power : float, default 0
+    lag_power : float, optional
         Neighbour weights ``(1 + h)**-lag_power`` with ``h`` the lag length in cells; 0 weighs all
-        neighbours alike.
+        neighbours alike. Default: 2 when a simulated (non-auxiliary) variable is categorical,
+        else 0. Weighing near neighbours more follows Mariethoz et al. (2010), who weigh each lag
+        by a negative power of its length (recalled from memory). With equal weights an inexact
+        categorical match may differ from the node right next to it as cheaply as far away, and
+        categories that occur as small or thin bodies erode (whatever their codes): measured on
+        invented thresholded Gaussian fields (other parameters at their defaults, 96 x 96 grids,
+        6 realizations per TI), the minority of two (4 TIs) came out 0.037-0.073 low with power
+        0 and within -0.018 to +0.023 with power 2; the middle of three equal classes (2 TIs)
+        0.275-0.303 instead of 0.333 with power 0, 0.329-0.336 with power 2; and with less
+        noise (standardised indicator variogram at lag 1: +4 to +89 % -> +1 to +33 %).
+        Continuous variables keep 0: on scikit-image's brick texture power 2 moved the histogram
+        away from the TI's (Kolmogorov-Smirnov statistic 0.07 -> 0.12).
     kinds : str, sequence or mapping of str, optional
         ``"continuous"`` or ``"categorical"`` per variable, overriding the dtype rule.
     auxiliary : sequence of str, default ()
@@ -242,7 +263,7 @@ class DirectSampler:
         scan_fraction: float = 0.3,
         search_radius: Any = None,
         weights: Any = None,
-        lag_power: float = 0.0,
+        lag_power: float | None = None,
         kinds: Any = None,
         auxiliary: Sequence[str] = (),
     ) -> None:
@@ -477,7 +498,7 @@ def _run(samplers: list[DirectSampler], zones: np.ndarray | None, shape: Any, *,
         weights = p["weights"] or {}
         zone_params.append((p["neighbors"], p["accept_distance"], p["scan_fraction"],
                             np.ascontiguousarray(t.offsets), [float(weights.get(n, 1.0)) for n in names],
-                            p["lag_power"]))
+                            _lag_power(p, variables)))
     zone_flat = None if zones is None else np.ascontiguousarray(zones, dtype=np.int32).ravel()
     _, source, stats = _core.direct_simulate(
         tis,
@@ -513,6 +534,14 @@ def _run(samplers: list[DirectSampler], zones: np.ndarray | None, shape: Any, *,
                                      grid_shape).reshape(out_shape)
     value = results[names[0]] if single else results
     return (value, source) if return_source else value
+
+
+def _lag_power(params: dict[str, Any], variables: list[_Variable]) -> float:
+    """The lag power given, or the default: 2 when a simulated variable is categorical, else 0."""
+    if params["lag_power"] is not None:
+        return float(params["lag_power"])
+    simulated = [x for x in variables if x.name not in params["auxiliary"]]
+    return 2.0 if any(x.kind == "categorical" for x in simulated) else 0.0
 
 
 def _common_scale(variables: list[_Variable]) -> tuple[float, float]:

@@ -3,13 +3,27 @@
 A training pair (coarse, fine) on one region teaches how fine-scale patterns sit inside coarse
 blocks; elsewhere, given only the coarse field, fine-scale realizations are drawn whose block means
 follow it. The coarse field enters the distance as an auxiliary variable on both the training image
-and the simulation grid, interpolated linearly between block centres onto the fine cells.
+and the simulation grid, spread onto the fine cells by a smooth, mean-preserving interpolation: a
+cubic spline through the block centres, corrected until its block means equal the coarse values
+(the mean-preserving idea of Tobler 1979, "Smooth pycnophylactic interpolation for geographical
+regions", Journal of the American Statistical Association 74, 519-530).
 
-Why interpolated rather than repeated over each block: a repeated (piecewise constant) coarse field
-has steps at block edges, and matching those steps ties each copy to TI locations at the same
-position inside a block, a sixteenth of the candidates for 4 x 4 blocks. Measured on invented
-Gaussian fields (4 x 4 blocks): repeated, the fine variance came out 20 % low and the lag-1
-variogram 10-60 % high; interpolated, variance within 2 % and lag-1 variogram within 8 %.
+Why not repeated over each block: a repeated (piecewise constant) coarse field has steps at block
+edges, and matching those steps ties each copy to TI locations at the same position inside a block,
+a sixteenth of the candidates for 4 x 4 blocks (measured on invented Gaussian fields: fine variance
+20 % low, lag-1 variogram 10-60 % high).
+
+Why mean-preserving and smooth rather than linear between block centres: a linear surface has kinks
+at the block centres (again a position-in-block signature) and flattens every peak and trough, so
+its block means miss the coarse values (on the data below by 0.3 coarse standard deviations
+rms, up to 1.1). The copies then came out too smooth inside blocks: the copied TI cells had a
+residual (fine minus surface) variance 27-32 % below the TI's. Measured on invented data (white noise smoothed
+by a Gaussian kernel of sigma 2 cells, 128 x 128 training pair, 64 x 64 truth, 4 x 4 blocks, three
+seed triples, three realizations each): within-block variance 33-37 % below the truth's with the
+linear surface, 22-28 % below with this one; semivariogram at lag 2 19-26 % low -> 9-16 % low, at
+lag 4 24-29 % low -> 10-17 % low; block-mean correlation 0.96 -> 0.99. A cubic spline without
+the mean correction lands in between (lag 2 15-19 % low). What remains is direct sampling's own:
+unconditional runs with the same parameters are 15-19 % low at lag 2 against the TI.
 """
 
 from __future__ import annotations
@@ -24,6 +38,8 @@ from .direct import DirectSampler
 __all__ = ["block_means", "downscale"]
 
 _OWNER = "downscale"
+#: Most correction rounds of the mean-preserving spread of the coarse field.
+_SPREAD_ROUNDS = 100
 
 
 def block_means(fine: Any, factor: Any) -> np.ndarray:
@@ -128,7 +144,7 @@ def downscale(
         raise v.fail_type("match_block_means", "a bool", match_block_means, _OWNER)
     sd = v.seed(seed, owner=_OWNER)
     sampler = DirectSampler(
-        {"fine": ft, "coarse": _interpolate(ct, factor)},
+        {"fine": ft, "coarse": _spread(ct, factor)},
         neighbors=neighbors,
         accept_distance=accept_distance,
         scan_fraction=scan_fraction,
@@ -137,7 +153,7 @@ def downscale(
         weights={"fine": 1.0, "coarse": cw},
         auxiliary=["coarse"],
     )
-    coarse_fine = _interpolate(cg, factor)
+    coarse_fine = _spread(cg, factor)
     out = np.empty((n, *coarse_fine.shape))
     for r in range(n):
         sim = sampler.simulate(
@@ -149,14 +165,23 @@ def downscale(
     return out
 
 
-def _interpolate(a: np.ndarray, factor: tuple[int, ...]) -> np.ndarray:
-    """Linear interpolation between block centres onto the fine cells, flat past the outer ones."""
-    out = a
-    for axis, k in enumerate(factor):
-        n = out.shape[axis]
-        centres = (np.arange(n) + 0.5) * k
-        fine = np.arange(n * k) + 0.5
-        out = np.apply_along_axis(lambda line, c=centres, x=fine: np.interp(x, c, line), axis, out)
+def _spread(a: np.ndarray, factor: tuple[int, ...]) -> np.ndarray:
+    """A smooth fine field whose block means equal ``a``: a cubic spline through the block centres
+    (flat past the outer ones), plus the spline of the block-mean misfit, repeated until the misfit
+    is below 1e-9 of the coarse range (each round shrinks it about 2 times on smooth fields, 1.7
+    times on a checkerboard)."""
+    from scipy import ndimage
+
+    def spline(x: np.ndarray) -> np.ndarray:
+        return ndimage.zoom(x, factor, order=3, mode="nearest", grid_mode=True)
+
+    out = spline(a)
+    tolerance = 1e-9 * max(float(np.ptp(a)), 1e-300)
+    for _ in range(_SPREAD_ROUNDS):
+        misfit = a - block_means(out, factor)
+        if np.abs(misfit).max() <= tolerance:
+            break
+        out += spline(misfit)
     return np.ascontiguousarray(out)
 
 

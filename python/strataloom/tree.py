@@ -3,13 +3,15 @@
 Training-image data events are counted once, by template node, into one tree per multiple-grid
 level (the search-tree approach of Strebelle 2002, Mathematical Geology 34(1)); a simulation then
 visits the grid level by level, coarsest first, reads each node's data event, asks the tree for the
-conditional probability of each category (dropping the farthest informed nodes while too few
-replicates match), merges soft data by the tau model, optionally steers toward target
-proportions, and draws the category. Everything runs in the compiled core, off the GIL.
+conditional probability of each category (dropping informed nodes while too few replicates
+match: the farthest first, or on finer grids those informed last in the grid's refinement),
+merges soft data by the tau model, optionally steers toward target proportions, and draws the
+category. Everything runs in the compiled core, off the GIL.
 """
 
 from __future__ import annotations
 
+import copy
 from collections.abc import Callable, Sequence
 from typing import Any
 
@@ -17,6 +19,7 @@ import numpy as np
 
 from . import _core
 from . import _validate as v
+from .errors import MemoryLimitError
 from .geometry import local_geometry, refuse_flat_dip, turn_matrix
 from .template import Template
 
@@ -55,7 +58,8 @@ class PatternTree:
         Number of multiple grids; one tree per level.
     min_replicates : int, default 1
         Fewest training-image replicates a data event must have; below it, informed nodes are
-        dropped from the last in template order.
+        dropped from the last in template order (in simulation, on levels with a coarser one, from
+        the last in the order the level's cells are refined: see DEVELOPERS.md).
     memory_limit : int, optional
         Bytes the trees may use; default half the physical memory. A build that would need more
         stops with `MemoryLimitError` before exhausting the machine.
@@ -95,8 +99,22 @@ class PatternTree:
             return self
         if key not in self._turned:
             turned = turned_image(np.where(self._codes == 255, -1, self._codes.astype(np.int16)), *key)
-            self._turned[key] = PatternTree(turned, self._template, levels=self._tree.levels,
-                                            min_replicates=self._min_replicates, memory_limit=self._limit)
+            tree = copy.copy(self)  # same template, levels and settings
+            tree.training_image = turned
+            tree._codes = _as_codes(turned)
+            tree._turned = {}
+            tree.last_stats = None
+            try:
+                # One memory_limit for this tree and every turned one, ordered trees included.
+                tree._tree = _core.PatternTree(np.ascontiguousarray(tree._codes), self.categories,
+                                               np.ascontiguousarray(self._template.offsets), self._tree.levels,
+                                               self._limit, share_budget_with=self._tree)
+            except MemoryLimitError as exc:
+                raise MemoryLimitError(
+                    f"{exc} The trees of the training image turned and stretched for {len(self._turned) + 1} "
+                    "rotation and affinity classes share it with the tree itself: use fewer classes (a "
+                    "constant, or a map with fewer distinct values) or raise memory_limit.") from None
+            self._turned[key] = tree
         return self._turned[key]
 
     # ----------------------------------------------------------------- description
@@ -118,8 +136,10 @@ class PatternTree:
 
     @property
     def memory_bytes(self) -> int:
-        """Bytes held by the trees and the padded training image."""
-        return int(self._tree.memory_bytes)
+        """Bytes held by the trees, the padded training image, the ordered trees built for
+        simulation and the trees of turned training images (rotation and affinity classes), which
+        all share ``memory_limit``."""
+        return int(self._tree.memory_bytes) + sum(t.memory_bytes for t in self._turned.values())
 
     @property
     def bytes_per_node(self) -> float:
