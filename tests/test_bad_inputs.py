@@ -33,6 +33,20 @@ def _direct(ti=CONT, **kw):
     return sl.DirectSampler(ti, **kw)
 
 
+def _with_memory(memory, call):
+    """``call`` on a machine said to have ``memory`` bytes (so the case does not depend on this one)."""
+    from strataloom import _validate
+
+    def run():
+        with pytest.MonkeyPatch.context() as mp:
+            mp.setattr(_validate, "physical_memory", lambda: memory)
+            return call()
+    return run
+
+
+TI3 = np.random.default_rng(1).normal(size=(20, 60, 60))
+
+
 # (id, call, exception class, pattern naming the input and, where it is not implied, the fix)
 API_CASES = [
     # --- arrays
@@ -51,8 +65,8 @@ API_CASES = [
      sl.ParameterError, r"'soft' .* probabilities in \[0, 1\]"),
     ("tree-soft-wrong-ndim", lambda: _tree().simulate((4, 5), soft=np.full((3, 5), 1 / 3)),
      sl.ParameterError, r"'soft' .* shape \(K, nz, ny, nx\) = \(3, 1, 4, 5\)"),
-    ("tree-grid-over-memory", lambda: _tree().simulate((3000, 3000, 3000)), sl.MemoryLimitError,
-     r"'shape' .* 27,000,000,000 cells .* GiB.*smaller grid"),
+    ("tree-grid-over-memory", _with_memory(2**30, lambda: _tree().simulate((3000, 3000, 3000))),
+     sl.MemoryLimitError, r"'shape' .* 27,000,000,000 cells .* 402.3 GiB, more than the 1.0 GiB.*smaller grid"),
     ("tree-grid-over-2**40-cells", lambda: _tree().simulate((100000, 100000, 100000)),
      (sl.ParameterError, sl.MemoryLimitError), r"'shape'"),
     ("direct-ti-complex", lambda: _direct(np.zeros((6, 6), complex)).simulate((4, 4)),
@@ -73,8 +87,23 @@ API_CASES = [
      r"'training_image' .* non-empty mapping"),
     ("direct-ti-int-key", lambda: _direct({1: CONT}).simulate((4, 4)), sl.ParameterTypeError,
      r"'training_image' .* str keys"),
-    ("direct-grid-over-memory", lambda: _direct().simulate((3000, 3000, 3000)), sl.MemoryLimitError,
-     r"'shape' of DirectSampler.simulate .* GiB.*smaller grid"),
+    ("direct-grid-over-memory", _with_memory(2**30, lambda: _direct().simulate((3000, 3000, 3000))),
+     sl.MemoryLimitError, r"'shape' of DirectSampler.simulate .* 704.1 GiB, more than the 1.0 GiB.*smaller grid"),
+    # the TI padded for the turned and stretched search window: (12 + 2 * 44)**2 cells of 13 bytes
+    ("direct-affinity-padded-over-memory",
+     _with_memory(40_000, lambda: _direct().simulate((4, 4), affinity=0.25)), sl.MemoryLimitError,
+     r"'affinity' of DirectSampler.simulate .* 10,000 cells .* 127.0 KiB, more than the 39.1 KiB .*"
+     r"use affinity factors of at least 0.5\d"),
+    ("direct-affinity-padded-over-cells",
+     lambda: _direct(TI3, search_radius=(3, 10, 10)).simulate((4, 8, 8), affinity=0.004), sl.MemoryLimitError,
+     r"'affinity' .* reaching \(750, 2500, 2500\) cells, .* over the limit of 2,000,000,000 cells; "
+     r"use affinity factors of at least 0.012"),
+    ("direct-affinity-padded-beyond-reach",
+     lambda: _direct(TI3, search_radius=(3, 10, 10)).simulate((4, 8, 8), affinity=(16, 16, 0.002)),
+     sl.MemoryLimitError, r"'affinity' .* beyond the largest padding of 4096 cells; use affinity factors of at least"),
+    ("direct-rotation-padded-over-memory",
+     _with_memory(20_000, lambda: _direct().simulate((4, 4), rotation=45)), sl.MemoryLimitError,
+     r"'search_radius' of DirectSampler gives .* use a smaller search_radius"),
     ("direct-hard-text", lambda: _direct().simulate((4, 4), hard=np.full((4, 4), "a")),
      sl.ParameterTypeError, r"'hard' .* numeric array"),
     # --- parameters

@@ -2,7 +2,9 @@
 
 Invariants (common practice, no source): every simulated value is one the training image holds
 (the method copies TI values, Mariethoz et al. 2010, Water Resources Research 46, W11536), hard data
-are honoured exactly, and the result does not depend on the thread count.
+are honoured exactly, and the result does not depend on the thread count. The cases also draw
+constant or per-cell rotation, affinity factors in [0.25, 4] and one or two zones (each zone copies
+from its own TI). The data are random, invented for the test.
 """
 
 import numpy as np
@@ -43,20 +45,59 @@ def cases(draw):
         "search_radius": draw(st.none() | st.integers(1, 4)),
     }
     path = draw(st.sampled_from(["random", "sweep"]))
-    return ti, grid, hard, pick, params, path, draw(st.integers(0, 2**40))
+    # a second zone: the TI with its values shifted (so the zones hold no value in common) and
+    # its own parameters
+    second = None
+    if draw(st.booleans()):
+        second = np.where(ti >= 0, ti + 4, -1) if categorical else ti + 10.0
+    zones = (rng.random(grid) < 0.5).astype(np.int64) if second is not None else None
+    geometry = {}
+    rotation = draw(st.sampled_from(["none", "constant", "map"]))
+    dip = three_d and grid[0] > 1 and draw(st.booleans())
+    if rotation == "constant":
+        azimuth = draw(st.floats(-180, 180))
+        geometry["rotation"] = (azimuth, draw(st.floats(-60, 60))) if dip else azimuth
+    elif rotation == "map":
+        azimuth = rng.uniform(-180, 180, size=grid)
+        geometry["rotation"] = (azimuth, rng.uniform(-60, 60, size=grid)) if dip else azimuth
+    factors = st.floats(0.25, 4)
+    affinity = draw(st.sampled_from(["none", "constant", "axes"]))
+    if affinity == "constant":
+        geometry["affinity"] = draw(factors)
+    elif affinity == "axes":
+        geometry["affinity"] = tuple(draw(factors) for _ in range(3))
+    return ti, second, zones, grid, hard, pick, params, path, geometry, draw(st.integers(0, 2**40))
 
 
 @settings(suppress_health_check=[HealthCheck.too_slow], deadline=None)
 @given(cases())
 def test_random_direct_runs_keep_the_invariants(case):
-    ti, grid, hard, pick, params, path, seed = case
+    ti, second, zones, grid, hard, pick, params, path, geometry, seed = case
     ds = sl.DirectSampler(ti, **params)
-    out = ds.simulate(grid, hard=hard, seed=seed, threads=1, path=path)
+    tis = [ti]
+    if second is None:
+        def run(threads):
+            return ds.simulate(grid, hard=hard, seed=seed, threads=threads, path=path, **geometry)
+    else:
+        other = sl.DirectSampler(second, **{**params, "neighbors": max(1, params["neighbors"] // 2)})
+        tis.append(second)
+
+        def run(threads):
+            return sl.simulate_zones([ds, other], zones, grid, hard=hard, seed=seed, threads=threads,
+                                     path=path, **geometry)
+    out = run(1)
     assert out.shape == grid
     if np.issubdtype(ti.dtype, np.integer):
-        assert np.isin(out, np.unique(ti[ti >= 0])).all(), "a code the TI does not hold was simulated"
+        held = np.unique(np.concatenate([t[t >= 0] for t in tis]))
+        assert np.isin(out, held).all(), "a code the TI does not hold was simulated"
     else:
         assert np.isfinite(out).all()
-        assert np.isin(out, ti[~np.isnan(ti)]).all(), "a value the TI does not hold was simulated"
+        held = np.concatenate([t[~np.isnan(t)] for t in tis])
+        assert np.isin(out, held).all(), "a value the TI does not hold was simulated"
+    if zones is not None:  # each node copies from its own zone's TI
+        for z, t in enumerate(tis):
+            own = (zones == z) & ~pick
+            informed = t[t >= 0] if np.issubdtype(ti.dtype, np.integer) else t[~np.isnan(t)]
+            assert np.isin(out[own], informed).all()
     np.testing.assert_array_equal(out[pick], hard[pick])
-    np.testing.assert_array_equal(ds.simulate(grid, hard=hard, seed=seed, threads=3, path=path), out)
+    np.testing.assert_array_equal(run(3), out)

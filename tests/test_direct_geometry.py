@@ -138,3 +138,28 @@ def test_bad_zones(channel_sampler):
         sl.simulate_zones([channel_sampler], np.zeros((10, 10), int), (10, 10), steering=0.5)
     with pytest.raises(TypeError, match="engines"):
         sl.simulate_zones(channel_sampler, np.zeros((10, 10), int), (10, 10))
+
+
+def test_grid_to_ti_is_the_inverse_of_turn_matrix():
+    # Linear algebra (common practice, no source): M = R diag(f) with R a rotation has the inverse
+    # diag(1/f) R^T, so M^-1 M is the identity for any angles and positive factors.
+    from strataloom.geometry import grid_to_ti, turn_matrix
+
+    rng = np.random.default_rng(7)
+    rows = np.column_stack([rng.uniform(-360, 360, 50), rng.uniform(-90, 90, 50),
+                            np.exp(rng.uniform(np.log(1 / 16), np.log(16), (50, 3)))])
+    inverses = grid_to_ti(rows)
+    for row, inverse in zip(rows, inverses, strict=True):
+        m = turn_matrix(row[0], row[1], row[2:])
+        np.testing.assert_allclose(inverse @ m, np.eye(3), atol=1e-12)
+        np.testing.assert_allclose(m @ inverse, np.eye(3), atol=1e-12)
+
+
+def test_padded_images_kept_are_the_base_and_the_latest():
+    ti = np.random.default_rng(2).normal(size=(30, 30))
+    ds = sl.DirectSampler(ti, search_radius=5)
+    for factor in (0.5, 0.25, 2.0, 0.5):
+        ds.simulate((8, 8), affinity=factor, threads=1)
+        assert len(ds._images) == 2
+    reaches = [key[0] for key in ds._images]
+    assert reaches == [(0, 5, 5), (0, 10, 10)]   # the window reach, and that of affinity 0.5

@@ -218,3 +218,31 @@ def test_a_worker_killed_by_the_system_gives_one_clear_error_and_resumes(tmp_pat
     assert not store.done()[2]
     res = run_ensemble(prep.factory(threads=1), store, seeds, processes=1, progress=False)
     assert 2 in res.computed and store.done().all()
+
+
+_PADDED_UNDER_LIMIT = """
+import resource
+import numpy as np
+import strataloom as sl
+with open("/proc/self/status") as f:
+    mapped = next(int(line.split()[1]) * 1024 for line in f if line.startswith("VmSize:"))
+resource.setrlimit(resource.RLIMIT_AS, (mapped + 600 * 2**20, resource.RLIM_INFINITY))
+ds = sl.DirectSampler(np.random.default_rng(0).normal(size=(20, 60, 60)), search_radius=(3, 10, 10))
+try:
+    ds.simulate((4, 8, 8), affinity=0.02, threads=1)   # a padded TI of about 4.4 GiB
+except sl.MemoryLimitError as e:
+    print(e)
+ds.simulate((4, 8, 8), affinity=0.5, threads=1)
+print("smaller padding ran")
+"""
+
+
+@pytest.mark.skipif(not Path("/proc/self/status").exists(), reason="needs /proc to read the mapped size")
+def test_padded_ti_over_an_address_space_limit_is_refused_naming_affinity():
+    # under `ulimit -v`, the direct sampler's padded TI used to fail with a bare std::bad_alloc
+    done = subprocess.run([sys.executable, "-c", _PADDED_UNDER_LIMIT], capture_output=True, text=True,
+                          timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert re.search(r"The parameter 'affinity' of DirectSampler.simulate .* 4.4 GiB, more than the \S+ MiB "
+                     r"this process can use; use affinity factors of at least 0.\d+\.", done.stdout), done.stdout
+    assert "smaller padding ran" in done.stdout

@@ -147,6 +147,13 @@ def test_check_lists_geometry_and_zones(tmp_path, capsys):
         (lambda d: _swap(d, 'training_image = "blobs.npy"',
                          'parameters = { steering = 0.5 }\ntraining_image = "blobs.npy"'),
          r"'zones.zone\[1\].parameters.steering' is an option of the simulation shared by all zones"),
+        # levels given per zone: the pattern trees of all zones share it
+        (lambda d: _swap(d, 'training_image = "blobs.npy"',
+                         'parameters = { levels = 2 }\ntraining_image = "blobs.npy"'),
+         r"'zones.zone\[1\].parameters.levels' is an option of the simulation shared by all zones"),
+        # an affinity map with a factor over 16: the engines' check, named against the map
+        (lambda d: _affinity_map(d, 20.0),
+         r"'geometry.affinity' map 'aff.npy' is refused: .*'affinity' .* factors in \(0, 16\]"),
         # rotation among the engine parameters
         (lambda d: _swap(d, "levels = 3", "levels = 3\nrotation = 30.0"),
          r"'engine.parameters.rotation' is set in the study's \[geometry\]"),
@@ -164,6 +171,13 @@ def test_bad_geometry_and_zone_keys(tmp_path, capsys, edit, expect):
 def _azimuth_map(folder, a):
     np.save(folder / "az.npy", a)
     _swap(folder, "azimuth = 30.0", 'azimuth = "az.npy"')
+
+
+def _affinity_map(folder, top):
+    a = np.ones((3, 1, 48, 64))
+    a[2, 0, 0, 0] = top
+    np.save(folder / "aff.npy", a)
+    _swap(folder, "azimuth = 30.0", 'azimuth = 30.0\naffinity = "aff.npy"')
 
 
 def _swap(folder, old, new):
@@ -186,7 +200,32 @@ def test_local_azimuth_of_plane_waves():
         assert coh[inner].mean() > 0.9
 
 
+def test_local_azimuth_reads_each_layer_alone():
+    # Same fact as above (common practice, no source), on a stack whose layers hold waves of
+    # different azimuths: each layer is measured at its own azimuth, whatever its neighbours.
+    y, x = np.mgrid[0:64, 0:64].astype(float)
+    angles = (0.0, 90.0, 45.0)
+    stack = np.stack([np.sin(2 * np.pi * (x * np.cos(np.radians(a)) - y * np.sin(np.radians(a))) / 9.0)
+                      for a in angles])
+    az, coh = local_azimuth(stack)
+    for k, a in enumerate(angles):
+        assert orientation_gap(az[k, 8:-8, 8:-8], a, coh[k, 8:-8, 8:-8]) < 1.0, a
+
+
 def test_orientation_gap_is_axial():
     # Axial directions (common practice, no source): 179 and 1 degrees are 2 degrees apart.
     assert orientation_gap(np.array([179.0]), 1.0) == pytest.approx(2.0)
     assert orientation_gap(np.array([10.0, 100.0]), 10.0, np.array([1.0, 0.0])) == 0.0
+
+
+@pytest.mark.parametrize(("parameter", "key"), [("rotation", "geometry"), ("affinity", "geometry"),
+                                                ("zones", "zones"), ("engines", "zones")])
+def test_engine_refusals_of_geometry_and_zones_name_their_table(tmp_path, parameter, key):
+    from strataloom.errors import ParameterError
+    from strataloom.workflow import engine_error
+
+    study = load_study(write_study(tmp_path))
+    err = engine_error(study, ParameterError(f"The parameter '{parameter}' of simulate_zones must be ..."))
+    line = next(i for i, text in enumerate(study.path.read_text().splitlines(), 1) if text == f"[{key}]")
+    assert re.search(rf"line {line}: '{key}' is refused by the pattern_tree engine: The parameter '{parameter}'",
+                     str(err)), str(err)

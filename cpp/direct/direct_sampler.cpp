@@ -659,8 +659,8 @@ class Simulation {
       const double x = m[3 * a] * lag[0] + m[3 * a + 1] * lag[1] + m[3 * a + 2] * lag[2];
       const double k = std::nearbyint(x);
       if (std::abs(k) > ti.reach()[a])
-        throw ParameterError("rotation", "turns or stretches the search window beyond the training image's padding; "
-                                         "pad it for the widest turned lag.");
+        throw ParameterError("rotation", "(with 'affinity') turns a lag beyond the padding sized for it: an internal "
+                                         "error; please report it with the rotation and affinity used.");
       t[a] = static_cast<std::int32_t>(k);
     }
     d = ti.padded_delta(t);

@@ -26,4 +26,5 @@ LD_PRELOAD="$runtime" ASAN_OPTIONS=detect_leaks=0 UBSAN_OPTIONS=halt_on_error=1:
   python -m pytest -q -p no:cacheprovider -k "not ctrl_c" tests/test_tree_counts.py \
   tests/test_tree_errors.py tests/test_tree_fuzz.py tests/test_direct.py tests/test_direct_errors.py \
   tests/test_direct_fuzz.py tests/test_grid.py tests/test_template.py tests/test_random.py \
+  tests/test_tree_geometry.py tests/test_direct_geometry.py \
   tests/test_bad_inputs.py::test_api_bad_input tests/test_bad_inputs.py::test_non_contiguous_arrays_give_the_result_of_their_copies

@@ -123,6 +123,40 @@ def physical_memory() -> int:
         return 0
 
 
+def size_text(b: float) -> str:
+    """A byte count for people: ``"512 B"``, ``"38.1 KiB"``, ``"4.4 GiB"``."""
+    for unit in ("B", "KiB", "MiB", "GiB", "TiB"):
+        if b < 1024 or unit == "TiB":
+            return f"{b:.0f} {unit}" if unit == "B" else f"{b:.1f} {unit}"
+        b /= 1024
+    return f"{b:.1f} TiB"
+
+
+def usable_memory() -> int:
+    """Bytes this process may still allocate (0 when unknown): the machine's physical memory, or
+    less when an address-space limit (``ulimit -v``) leaves less room beyond what the process maps."""
+    have = physical_memory()
+    try:
+        import resource
+
+        limit = resource.getrlimit(resource.RLIMIT_AS)[0]
+    except (ImportError, OSError, ValueError):
+        return have
+    if limit == resource.RLIM_INFINITY or limit <= 0:
+        return have
+    mapped = 0
+    try:
+        with open("/proc/self/status", encoding="ascii") as f:
+            for line in f:
+                if line.startswith("VmSize:"):
+                    mapped = int(line.split()[1]) * 1024
+                    break
+    except (OSError, ValueError, IndexError):
+        pass
+    room = max(int(limit) - mapped, 1)
+    return min(have, room) if have else room
+
+
 def grid_memory(shape: tuple[int, int, int], bytes_per_cell: int, name: str = "shape", *,
                 owner: str | None = None) -> int:
     """The bytes a grid of ``shape`` needs at ``bytes_per_cell``; MemoryLimitError when this is more

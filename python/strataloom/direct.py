@@ -23,6 +23,7 @@ the TI does not vary along).
 from __future__ import annotations
 
 import dataclasses
+import math
 import numbers
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
@@ -32,7 +33,8 @@ import numpy as np
 
 from . import _core
 from . import _validate as v
-from .geometry import grid_to_ti, local_geometry
+from .errors import MemoryLimitError
+from .geometry import MAX_AFFINITY, grid_to_ti, local_geometry, refuse_flat_dip
 from .template import Template
 
 __all__ = ["DirectSampler"]
@@ -319,10 +321,13 @@ class DirectSampler:
 
     def _image(self, reach: tuple[int, int, int], scale: tuple[tuple[float, float], ...] | None) -> Any:
         """The compiled TI padded by ``reach``, continuous values normalised by ``scale`` ((low, span)
-        per variable; None: the TI's own range). Built once per (reach, scale)."""
-        variables, _, _, _ = self._prepare()
+        per variable; None: the TI's own range). The base TI and the latest other one are kept."""
+        variables, _, tpl, _ = self._prepare()
         key = (tuple(int(r) for r in reach), scale)
         if key not in self._images:
+            # keep the base TI and the one being built: a padded TI can be large (see `_padding`)
+            base = (tuple(int(r) for r in tpl.reach), None)
+            self._images = {k: ti for k, ti in self._images.items() if k == base}
             values = []
             for i, x in enumerate(variables):
                 if scale is None or x.kind == "categorical":
@@ -409,7 +414,9 @@ class DirectSampler:
         With rotation or affinity, each node compares the lag ``h`` to a grid neighbour with the
         TI lag ``rint(M h)`` (half to even), ``M`` the inverse of the node's turn and stretch; the
         TI is padded for the widest turned lag. The neighbours themselves are still the nearest
-        informed grid nodes.
+        informed grid nodes. Small affinity factors widen the padding: a padded TI beyond the
+        memory this process can use is refused before it is built (MemoryLimitError naming the
+        smallest factor that fits). The sampler keeps its base TI and the latest padded one.
         """
         return _run([self], None, shape, hard=hard, auxiliary=auxiliary, seed=seed, threads=threads,
                     path=path, return_source=return_source, rotation=rotation, affinity=affinity,
@@ -481,12 +488,14 @@ def _run(samplers: list[DirectSampler], zones: np.ndarray | None, shape: Any, *,
     for s, (_, p, t, _) in zip(samplers, prepared, strict=True):
         reach = np.asarray(t.reach)
         if matrices is not None:
-            turned = np.floor(np.abs(matrices) @ reach.astype(np.float64) + 0.5).max(axis=0).astype(np.int64)
-            reach = np.maximum(reach, turned)
-            if reach.max() > 4096:
-                raise v.fail("affinity", "factors that keep the turned search window within 4096 cells",
-                             affinity, owner)
-        tis.append(s._image(tuple(int(r) for r in reach), scale))
+            # a padded TI built by an earlier call is dropped before a new one is built
+            base = (tuple(int(r) for r in t.reach), None)
+            freed = sum(_padded_bytes(s._prepared[2], k[0], len(names))[1] for k in s._images if k != base)
+            reach = _padding(matrices, reach, s._prepared[2], len(names), freed, affinity, owner)
+        try:
+            tis.append(s._image(tuple(int(r) for r in reach), scale))
+        except MemoryError:  # the estimate fitted but the allocation did not (memory used elsewhere)
+            raise _padding_error(s._prepared[2], reach, len(names), None, affinity, owner) from None
         weights = p["weights"] or {}
         zone_params.append((p["neighbors"], p["accept_distance"], p["scan_fraction"],
                             np.ascontiguousarray(t.offsets), [float(weights.get(n, 1.0)) for n in names],
@@ -552,9 +561,7 @@ def _geometry(rotation: Any, affinity: Any, shape: tuple[int, int, int], sampler
     geo = local_geometry(rotation, affinity, shape, owner)
     if geo is None:
         return None, None
-    if geo.has_dip and any(s._prepare()[3].shape[0] == 1 for s in samplers):
-        raise v.fail("rotation", "no dip with a 2-D training image (a flat image cannot be tipped); "
-                     "give a 3-D training image or an azimuth alone", rotation, owner)
+    refuse_flat_dip(any(s._prepare()[3].shape[0] == 1 for s in samplers), geo, rotation, owner)
     cells = shape[0] * shape[1] * shape[2]
     if geo.constant:
         rows = geo.rows(1)
@@ -563,6 +570,79 @@ def _geometry(rotation: Any, affinity: Any, shape: tuple[int, int, int], sampler
         rows, inverse = np.unique(geo.rows(cells), axis=0, return_inverse=True)
         classes = np.ascontiguousarray(inverse.reshape(-1), dtype=np.int32)
     return grid_to_ti(rows), classes
+
+
+#: Largest reach of a padded TI along any axis, and its most cells (limits of the core).
+_MAX_REACH = 4096
+_MAX_PADDED_CELLS = 2e9
+
+
+def _padded_bytes(ti_shape: tuple[int, int, int], reach: Any, n_variables: int) -> tuple[int, int]:
+    """(cells, bytes) of the core's TI padded by ``reach``: per slot one float32 per variable, the
+    informed bits and the running count of real cells (uint32 each) and a byte while building."""
+    cells = 1
+    for n, r in zip(ti_shape, reach, strict=True):
+        cells *= int(n) + 2 * int(r)
+    return cells, cells * (4 * n_variables + 9)
+
+
+def _turned_reach(matrices: np.ndarray, reach: np.ndarray) -> np.ndarray:
+    """The reach that holds every turned lag ``rint(M h)`` of the window (``sum_b |M_ab| reach_b``)."""
+    turned = np.floor(np.abs(matrices) @ reach.astype(np.float64) + 0.5).max(axis=0).astype(np.int64)
+    return np.maximum(reach, turned)
+
+
+def _padding(matrices: np.ndarray, reach: np.ndarray, ti_shape: tuple[int, int, int], n_variables: int,
+             freed: int, affinity: Any, owner: str) -> np.ndarray:
+    """The TI padding for the turned window, refused before anything is allocated when it reaches
+    beyond the core's limits or needs more memory than this process can get (plus ``freed`` bytes
+    of an earlier padded TI that is dropped first)."""
+    budget = v.usable_memory()
+    budget = budget + freed if budget else 0
+
+    def fits(r: np.ndarray) -> bool:
+        cells, need = _padded_bytes(ti_shape, r, n_variables)
+        return r.max() <= _MAX_REACH and cells <= _MAX_PADDED_CELLS and (not budget or need <= budget)
+
+    padded = _turned_reach(matrices, reach)
+    if fits(padded):
+        return padded
+    smallest = None
+    if affinity is not None:
+        # Each row a of M = diag(1/f) R^T has norm 1/f_a (R is a rotation): raising every factor
+        # below g to g scales the rows longer than 1/g down to 1/g. Bisect for the smallest g.
+        norms = np.linalg.norm(matrices, axis=2, keepdims=True)
+
+        def fits_from(g: float) -> bool:
+            return fits(_turned_reach(matrices * np.minimum(1.0, 1.0 / (g * norms)), reach))
+
+        if fits_from(MAX_AFFINITY):
+            low, high = 0.0, MAX_AFFINITY
+            for _ in range(50):
+                mid = 0.5 * (low + high)
+                low, high = (low, mid) if fits_from(mid) else (mid, high)
+            unit = 10.0 ** (math.floor(math.log10(high)) - 1)  # shown with 2 digits, rounded up
+            smallest = min(MAX_AFFINITY, round(math.ceil(high / unit) * unit, 12))
+    raise _padding_error(ti_shape, padded, n_variables, smallest, affinity, owner, budget)
+
+
+def _padding_error(ti_shape: tuple[int, int, int], reach: Any, n_variables: int, smallest: float | None,
+                   affinity: Any, owner: str, budget: int = 0) -> MemoryLimitError:
+    cells, need = _padded_bytes(ti_shape, reach, n_variables)
+    have = f"the {v.size_text(budget)} this process can use" if budget else "the memory this process can use"
+    why = (f"reaches {int(max(reach))} cells, beyond the largest padding of {_MAX_REACH} cells"
+           if max(reach) > _MAX_REACH else
+           f"pads the training image to {cells:,} cells, over the limit of {int(_MAX_PADDED_CELLS):,} cells"
+           if cells > _MAX_PADDED_CELLS else
+           f"pads the training image to {cells:,} cells that need about {v.size_text(need)}, "
+           f"more than {have}")
+    window = f"a turned and stretched search window reaching {tuple(int(r) for r in reach)} cells, which {why}"
+    if affinity is None:
+        return MemoryLimitError(f"The parameter 'search_radius' of {_OWNER} gives {window}; "
+                                "use a smaller search_radius.")
+    fix = (f"use affinity factors of at least {smallest:g}" if smallest is not None
+           else "use larger affinity factors or a smaller search_radius")
+    return MemoryLimitError(f"The parameter 'affinity' of {owner} gives {window}; {fix}.")
 
 
 # --- helpers ---
@@ -782,9 +862,11 @@ def _restore(
     if zones is None:
         out[fill] = originals[0][src[fill]]
     else:
-        for z, original in enumerate(originals):
-            here = fill & (zones == z)
-            out[here] = original[src[here]]
+        filled = np.flatnonzero(fill)
+        zone_of = zones[filled]
+        for z in np.unique(zone_of):  # only the zones present, one mask over the filled nodes each
+            here = filled[zone_of == z]
+            out[here] = originals[int(z)][src[here]]
     return out.reshape(shape)
 
 

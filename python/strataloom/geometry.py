@@ -25,6 +25,8 @@ __all__ = ["LocalGeometry", "local_geometry", "turn_matrix"]
 
 #: Largest affinity factor (and smallest: its inverse is not enforced; factors must be in (0, 16]).
 MAX_AFFINITY = 16.0
+#: Largest zone code (zone maps and per-zone engines, API and study files).
+MAX_ZONE = 254
 
 
 @dataclass(frozen=True)
@@ -80,17 +82,41 @@ def local_geometry(rotation: Any, affinity: Any, shape: tuple[int, int, int], ow
     return geo
 
 
+def refuse_flat_dip(flat_ti: bool, geo: LocalGeometry | None, rotation: Any, owner: str) -> None:
+    """Refuse a dip when a training image is 2-D (a flat image cannot be tipped)."""
+    if flat_ti and geo is not None and geo.has_dip:
+        raise v.fail("rotation", "no dip with a 2-D training image (a flat image cannot be tipped); "
+                     "give a 3-D training image or an azimuth alone", rotation, owner)
+
+
+def _rotations(azimuth: Any, dip: Any) -> np.ndarray:
+    """(n, 3, 3) rotations (axes z, y, x): turn by ``azimuth`` about z, then tip by ``dip``.
+
+    x' = x cos + y sin, y' = -x sin + y cos (clockwise from +y), then the dip in the (z, y) plane.
+    """
+    az, dp = np.radians(np.atleast_1d(azimuth)), np.radians(np.atleast_1d(dip))
+    n = max(len(az), len(dp))
+    rot_az = np.zeros((n, 3, 3))
+    rot_az[:, 0, 0] = 1
+    rot_az[:, 1, 1] = np.cos(az)
+    rot_az[:, 1, 2] = -np.sin(az)
+    rot_az[:, 2, 1] = np.sin(az)
+    rot_az[:, 2, 2] = np.cos(az)
+    rot_dip = np.zeros((n, 3, 3))
+    rot_dip[:, 0, 0] = np.cos(dp)
+    rot_dip[:, 0, 1] = -np.sin(dp)
+    rot_dip[:, 1, 0] = np.sin(dp)
+    rot_dip[:, 1, 1] = np.cos(dp)
+    rot_dip[:, 2, 2] = 1
+    return rot_dip @ rot_az
+
+
 def turn_matrix(azimuth: float, dip: float = 0.0, affinity: Any = (1.0, 1.0, 1.0)) -> np.ndarray:
     """The 3x3 matrix (axes z, y, x) taking TI coordinates to grid coordinates.
 
     Stretch by ``affinity``, then turn by ``azimuth`` about z, then tip by ``dip``.
     """
-    f = np.asarray(affinity, dtype=np.float64)
-    az, dp = np.radians(azimuth), np.radians(dip)
-    # x' = x cos + y sin, y' = -x sin + y cos (clockwise from +y), then the dip in the (z, y) plane.
-    rot_az = np.array([[1, 0, 0], [0, np.cos(az), -np.sin(az)], [0, np.sin(az), np.cos(az)]])
-    rot_dip = np.array([[np.cos(dp), -np.sin(dp), 0], [np.sin(dp), np.cos(dp), 0], [0, 0, 1]])
-    return rot_dip @ rot_az @ np.diag(f)
+    return _rotations(azimuth, dip)[0] @ np.diag(np.asarray(affinity, dtype=np.float64))
 
 
 def _angle_map(value: Any, shape: tuple[int, int, int], owner: str) -> np.ndarray:
@@ -151,19 +177,5 @@ def grid_to_ti(rows: np.ndarray) -> np.ndarray:
     The inverse of `turn_matrix`, computed for all rows at once: ``diag(1/f) R^T``.
     """
     rows = np.atleast_2d(np.asarray(rows, dtype=np.float64))
-    az, dp = np.radians(rows[:, 0]), np.radians(rows[:, 1])
-    n = len(rows)
-    rot_az = np.zeros((n, 3, 3))
-    rot_az[:, 0, 0] = 1
-    rot_az[:, 1, 1] = np.cos(az)
-    rot_az[:, 1, 2] = -np.sin(az)
-    rot_az[:, 2, 1] = np.sin(az)
-    rot_az[:, 2, 2] = np.cos(az)
-    rot_dip = np.zeros((n, 3, 3))
-    rot_dip[:, 0, 0] = np.cos(dp)
-    rot_dip[:, 0, 1] = -np.sin(dp)
-    rot_dip[:, 1, 0] = np.sin(dp)
-    rot_dip[:, 1, 1] = np.cos(dp)
-    rot_dip[:, 2, 2] = 1
-    rot = rot_dip @ rot_az
+    rot = _rotations(rows[:, 0], rows[:, 1])
     return np.transpose(rot, (0, 2, 1)) / rows[:, 2:, np.newaxis]

@@ -605,24 +605,30 @@ def local_azimuth(field_: Any, sigma: float = 1.0, window: float = 4.0) -> tuple
     """
     from scipy import ndimage
 
-    a = np.asarray(field_, dtype=np.float64)
+    a = np.asarray(field_)
     flat = a.ndim == 2
     a3 = v.as_volume(a, "field_", owner="local_azimuth")
+    if not (np.issubdtype(a3.dtype, np.number) or a3.dtype == np.bool_):
+        raise v.fail_type("field_", "a numeric array", a3, "local_azimuth")
     s = v.real(sigma, "sigma", low=0.0, owner="local_azimuth")
     w = v.real(window, "window", low=0.0, low_open=True, owner="local_azimuth")
-    f = ndimage.gaussian_filter(a3, (0, s, s)) if s > 0 else a3
-    gy = ndimage.sobel(f, axis=1)
-    gx = ndimage.sobel(f, axis=2)
-    jxx = ndimage.gaussian_filter(gx * gx, (0, w, w))
-    jyy = ndimage.gaussian_filter(gy * gy, (0, w, w))
-    jxy = ndimage.gaussian_filter(gx * gy, (0, w, w))
-    # Dominant gradient direction phi (from +x toward +y); the structures run at phi + 90 degrees,
-    # whose azimuth clockwise from +y is -phi.
-    phi = 0.5 * np.arctan2(2 * jxy, jxx - jyy)
-    azimuth = np.degrees(-phi) % 180.0
-    trace = jxx + jyy
-    with np.errstate(invalid="ignore", divide="ignore"):
-        coherence = np.where(trace > 1e-12, np.sqrt((jxx - jyy) ** 2 + 4 * jxy**2) / trace, 0.0)
+    azimuth = np.empty(a3.shape)
+    coherence = np.empty(a3.shape)
+    for k in range(a3.shape[0]):  # layer by layer: the working arrays stay the size of one layer
+        layer = a3[k].astype(np.float64)
+        f = ndimage.gaussian_filter(layer, s) if s > 0 else layer
+        gy = ndimage.sobel(f, axis=0)
+        gx = ndimage.sobel(f, axis=1)
+        jxx = ndimage.gaussian_filter(gx * gx, w)
+        jyy = ndimage.gaussian_filter(gy * gy, w)
+        jxy = ndimage.gaussian_filter(gx * gy, w)
+        # Dominant gradient direction phi (from +x toward +y); the structures run at phi + 90
+        # degrees, whose azimuth clockwise from +y is -phi.
+        phi = 0.5 * np.arctan2(2 * jxy, jxx - jyy)
+        azimuth[k] = np.degrees(-phi) % 180.0
+        trace = jxx + jyy
+        with np.errstate(invalid="ignore", divide="ignore"):
+            coherence[k] = np.where(trace > 1e-12, np.sqrt((jxx - jyy) ** 2 + 4 * jxy**2) / trace, 0.0)
     if flat:
         return azimuth[0], coherence[0]
     return azimuth, coherence
@@ -918,16 +924,17 @@ def check_run(
             if j == 0:
                 ti_axis = 0.0
                 if tia is not None:
-                    ti_az, ti_coh = local_azimuth((tia == fac).astype(np.float64))
+                    ti_az, ti_coh = local_azimuth(tia == fac)
                     ti_axis = _mean_axis(ti_az, ti_coh)
                 expected = (expected + ti_axis) % 180.0
                 gaps = np.zeros(n)
                 doubled = np.zeros((2, *shape))
                 res.orientation = {"ti_azimuth": ti_axis}
-            az, coh = local_azimuth((real == fac).astype(np.float64))
+            az, coh = local_azimuth(real == fac)
             gaps[j] = orientation_gap(az, expected, coh)
-            doubled[0] += coh * np.cos(np.radians(2 * az))
-            doubled[1] += coh * np.sin(np.radians(2 * az))
+            for k in range(shape[0]):  # one layer of temporaries at a time
+                doubled[0, k] += coh[k] * np.cos(np.radians(2 * az[k]))
+                doubled[1, k] += coh[k] * np.sin(np.radians(2 * az[k]))
         if progress is not None:
             progress(j + 1, n)
     res.facies = int(fac)  # type: ignore[arg-type]

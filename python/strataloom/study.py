@@ -38,6 +38,7 @@ from typing import Any
 import numpy as np
 
 from .errors import StudyError
+from .geometry import MAX_AFFINITY, MAX_ZONE
 from .grid import Grid
 
 __all__ = [
@@ -59,6 +60,8 @@ __all__ = [
 ENGINE_NAMES = ("pattern_tree", "direct_sampler")
 _COLOUR = re.compile(r"^#[0-9a-fA-F]{6}$")
 _MAX_CELLS = 2**31 - 1
+#: Engine parameters that all zones must share (the pattern trees of all zones use the same levels).
+_SHARED_BY_ZONES = frozenset({"levels"})
 
 
 # ----------------------------------------------------------------------------------------------
@@ -722,8 +725,8 @@ def _geometry(r: _Reader, raw: Any, folder: Path, grid: Grid) -> GeometrySpec:
         if not isinstance(raw_aff, list):
             raw_aff = [raw_aff] * 3
         affinity = r.triple(raw_aff, (*key, "affinity"), lambda x, k: r.number(x, k, positive=True))
-        if max(affinity) > 16:
-            raise r.error((*key, "affinity"), f"must hold factors in (0, 16]; got {list(affinity)}.")
+        if max(affinity) > MAX_AFFINITY:
+            raise r.error((*key, "affinity"), f"must hold factors in (0, {MAX_AFFINITY:g}]; got {list(affinity)}.")
     return GeometrySpec(azimuth, dip, affinity)
 
 
@@ -742,7 +745,7 @@ def _zones(r: _Reader, raw: Any, folder: Path, engine: str) -> ZonesSpec:
     for i, e in enumerate(entries):
         ek = (*key, "zone", i)
         e = r.table(e, ek, {"code": True, "training_image": False, "parameters": False})
-        code = r.integer(e["code"], (*ek, "code"), 0, 254)
+        code = r.integer(e["code"], (*ek, "code"), 0, MAX_ZONE)
         if code in seen:
             raise r.error((*ek, "code"), f"repeats zone code {code}; give each code once.")
         seen.add(code)
@@ -755,11 +758,11 @@ def _zones(r: _Reader, raw: Any, folder: Path, engine: str) -> ZonesSpec:
         except (ValueError, TypeError) as err:
             raise r.error((*ek, "parameters", *getattr(err, "key", ())), str(err)) from err
         for k in params:
-            if k not in own:
+            if k not in own or k in _SHARED_BY_ZONES:
                 raise r.error(
                     (*ek, "parameters", k),
                     "is an option of the simulation shared by all zones; set it in [engine.parameters] "
-                    f"(per zone: {', '.join(sorted(own))}).",
+                    f"(per zone: {', '.join(sorted(own - _SHARED_BY_ZONES))}).",
                 )
         out.append(ZoneSpec(code, ti, params))
     return ZonesSpec(zmap, tuple(out))

@@ -20,7 +20,7 @@ import numpy as np
 from . import _core
 from . import _validate as v
 from .errors import MemoryLimitError
-from .geometry import local_geometry, turn_matrix
+from .geometry import local_geometry, refuse_flat_dip, turn_matrix
 from .template import Template
 
 __all__ = ["GEOMETRY_STEP", "PatternTree", "turned_image"]
@@ -345,9 +345,7 @@ def _geometry_classes(trees: list[PatternTree], zones: np.ndarray | None, rotati
                      f"{len(classes)} classes", owner)
     built = []
     for zone, az, dp, fz, fy, fx in classes.tolist():
-        if dp != 0 and trees[zone]._codes.shape[0] == 1:
-            raise v.fail("rotation", "no dip with a 2-D training image (a flat image cannot be tipped); "
-                         "give a 3-D training image or an azimuth alone", rotation, owner)
+        refuse_flat_dip(dp != 0 and trees[zone]._codes.shape[0] == 1, geo, rotation, owner)
         key = (float(az * GEOMETRY_STEP), float(dp * GEOMETRY_STEP),
                tuple(float(2.0 ** (f * _AFFINITY_STEP)) for f in (fz, fy, fx)))
         built.append(trees[zone]._variant(key))

@@ -32,6 +32,7 @@ from .conditioning import (
 from .engines import EngineFactory, engine_class
 from .ensemble import EnsembleResult, realization_seeds, run_ensemble
 from .errors import MemoryLimitError, ParameterError, ParameterTypeError, StudyError
+from .geometry import _affinity
 from .store import RealizationStore, realization_attrs
 from .study import Study, _Reader, read_array
 
@@ -104,6 +105,10 @@ def _study_key(study: Study, message: str) -> tuple:
         "hard": ("wells",),
         "training_image": ("training_image",),
         "shape": ("grid", "shape"),
+        "rotation": ("geometry",),
+        "affinity": ("geometry",),
+        "zones": ("zones",),
+        "engines": ("zones",),
     }.get(name, ("engine",))
 
 
@@ -214,11 +219,11 @@ def read_geometry(study: Study) -> tuple[Any, Any]:
     dip = _map(study, g.dip, "geometry.dip", shape, "float") if isinstance(g.dip, Path) else g.dip
     if isinstance(g.affinity, Path):
         aff = _map(study, g.affinity, "geometry.affinity", (3, *shape), "float")
-        if (aff <= 0).any() or (aff > 16).any():
-            raise StudyError(
-                f"{study.path.name}: 'geometry.affinity' map '{g.affinity.name}' must hold factors in (0, 16]; "
-                f"got values in [{aff.min():g}, {aff.max():g}]."
-            )
+        try:  # the engines' one check of affinity factors
+            _affinity(aff, shape, "the study")
+        except ParameterError as e:
+            name = g.affinity.name
+            raise StudyError(f"{study.path.name}: 'geometry.affinity' map '{name}' is refused: {e}") from None
     else:
         aff = g.affinity
     rotation = (az, dip) if isinstance(dip, np.ndarray) or dip != 0.0 else az
@@ -719,12 +724,7 @@ def _probe(prep: Prepared, base: int) -> tuple[float, int, float] | None:
     return sec, mem, build
 
 
-def _size(b: float) -> str:
-    for unit in ("B", "KiB", "MiB", "GiB", "TiB"):
-        if b < 1024 or unit == "TiB":
-            return f"{b:.0f} {unit}" if unit == "B" else f"{b:.1f} {unit}"
-        b /= 1024
-    return f"{b:.1f} TiB"
+_size = v.size_text
 
 
 def _duration(s: float) -> str:

@@ -14,14 +14,13 @@ import numpy as np
 from . import _validate as v
 from .direct import DirectSampler
 from .direct import _simulate_zones as _direct_zones
+from .geometry import MAX_ZONE
 from .tree import PatternTree
 from .tree import _simulate_zones as _tree_zones
 
 __all__ = ["simulate_zones"]
 
 _OWNER = "simulate_zones"
-#: Largest zone code.
-MAX_ZONE = 254
 
 
 def simulate_zones(engines: Any, zones: Any, shape: Any, *, hard: Any = None, seed: int = 0,
