@@ -92,7 +92,7 @@ API_CASES = [
     # the TI padded for the turned and stretched search window: (12 + 2 * 44)**2 cells of 13 bytes
     ("direct-affinity-padded-over-memory",
      _with_memory(40_000, lambda: _direct().simulate((4, 4), affinity=0.25)), sl.MemoryLimitError,
-     r"'affinity' of DirectSampler.simulate .* 10,000 cells .* 127.0 KiB, more than the 39.1 KiB .*"
+     r"'affinity' of DirectSampler.simulate .* 10,000 cells .* 136.7 KiB, more than the 39.1 KiB .*"
      r"use affinity factors of at least 0.5\d"),
     ("direct-affinity-padded-over-cells",
      lambda: _direct(TI3, search_radius=(3, 10, 10)).simulate((4, 8, 8), affinity=0.004), sl.MemoryLimitError,

@@ -229,7 +229,7 @@ with open("/proc/self/status") as f:
 resource.setrlimit(resource.RLIMIT_AS, (mapped + 600 * 2**20, resource.RLIM_INFINITY))
 ds = sl.DirectSampler(np.random.default_rng(0).normal(size=(20, 60, 60)), search_radius=(3, 10, 10))
 try:
-    ds.simulate((4, 8, 8), affinity=0.02, threads=1)   # a padded TI of about 4.4 GiB
+    ds.simulate((4, 8, 8), affinity=0.02, threads=1)   # a padded TI of about 4.7 GiB
 except sl.MemoryLimitError as e:
     print(e)
 ds.simulate((4, 8, 8), affinity=0.5, threads=1)
@@ -243,6 +243,6 @@ def test_padded_ti_over_an_address_space_limit_is_refused_naming_affinity():
     done = subprocess.run([sys.executable, "-c", _PADDED_UNDER_LIMIT], capture_output=True, text=True,
                           timeout=120)
     assert done.returncode == 0, done.stderr
-    assert re.search(r"The parameter 'affinity' of DirectSampler.simulate .* 4.4 GiB, more than the \S+ MiB "
+    assert re.search(r"The parameter 'affinity' of DirectSampler.simulate .* 4.7 GiB, more than the \S+ MiB "
                      r"this process can use; use affinity factors of at least 0.\d+\.", done.stdout), done.stdout
     assert "smaller padding ran" in done.stdout

@@ -578,12 +578,13 @@ _MAX_PADDED_CELLS = 2e9
 
 
 def _padded_bytes(ti_shape: tuple[int, int, int], reach: Any, n_variables: int) -> tuple[int, int]:
-    """(cells, bytes) of the core's TI padded by ``reach``: per slot one float32 per variable, the
-    informed bits and the running count of real cells (uint32 each) and a byte while building."""
+    """(cells, bytes) of the core's TI padded by ``reach``: per slot one float32 per variable and a
+    byte copy of each categorical one (counted for every variable: an upper bound), the informed
+    bits and the running count of real cells (uint32 each) and a byte while building."""
     cells = 1
     for n, r in zip(ti_shape, reach, strict=True):
         cells *= int(n) + 2 * int(r)
-    return cells, cells * (4 * n_variables + 9)
+    return cells, cells * (5 * n_variables + 9)
 
 
 def _turned_reach(matrices: np.ndarray, reach: np.ndarray) -> np.ndarray:
