@@ -169,15 +169,28 @@ template <class T>
 }
 [[gnu::always_inline]] inline bool all_set(const LaneMask& m) noexcept { return all_ones(m); }
 
+// Lanes g * kLanes .. of the block at p whose TI cell informs every variable the node needs and,
+// in a block cut short, that lie inside it. (Only a short block gets the lane test: GCC turns the
+// constant lane numbers into one scalar compare per lane.)
+// (Written through a reference: a 64-byte vector returned by value trips GCC's ABI warning.)
+[[gnu::always_inline]] inline void valid_lanes(const NodeView& node, std::int64_t p, int lanes, int g,
+                                               LaneMask& valid) noexcept {
+  static constexpr std::int32_t kIota[kLanes] = {0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15};
+  LaneMask informed;
+  std::memcpy(&informed, node.informed + p + g * kLanes, sizeof informed);
+  const LaneMask need = LaneMask{} + static_cast<std::int32_t>(node.need);
+  valid = (informed & need) == need;
+  if (lanes < (g + 1) * kLanes) {
+    LaneMask iota;
+    std::memcpy(&iota, kIota, sizeof iota);
+    valid &= iota < lanes - g * kLanes;
+  }
+}
+
 SL_KERNEL bool evaluate_block(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
                               std::int64_t& comparisons) {
-  static constexpr std::int32_t kIota[kLanes] = {0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15};
-  LaneMask informed, lane;
-  std::memcpy(&informed, node.informed + p, sizeof informed);
-  std::memcpy(&lane, kIota, sizeof lane);
-  const LaneMask need = LaneMask{} + static_cast<std::int32_t>(node.need);
-  LaneMask valid = (informed & need) == need;
-  if (lanes < kLanes) valid &= lane < lanes;  // (a lane test GCC scalarises, for short blocks only)
+  LaneMask valid;
+  valid_lanes(node, p, lanes, 0, valid);
   const Lanes inf = Lanes{} + std::numeric_limits<float>::infinity();
   const Lanes zero = Lanes{};
   const Lanes one = zero + 1.0f;
@@ -281,20 +294,11 @@ constexpr int kGroups = kWideLanes / kLanes;
 
 SL_KERNEL bool evaluate_wide(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
                              std::int64_t& comparisons) {
-  static constexpr std::int32_t kIota[kLanes] = {0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15};
-  LaneMask iota;
-  std::memcpy(&iota, kIota, sizeof iota);
-  const LaneMask need = LaneMask{} + static_cast<std::int32_t>(node.need);
   const Lanes zero = Lanes{};
   LaneMask valid[kGroups];
   Lanes base[kGroups];
   for (int g = 0; g < kGroups; ++g) {
-    LaneMask informed;
-    std::memcpy(&informed, node.informed + p + g * kLanes, sizeof informed);
-    valid[g] = (informed & need) == need;
-    // (Only a block cut short needs the lane test; GCC would turn the constant `iota` into one
-    // scalar compare per lane.)
-    if (lanes < (g + 1) * kLanes) valid[g] &= iota < lanes - g * kLanes;
+    valid_lanes(node, p, lanes, g, valid[g]);
     base[g] = zero;
   }
   const bool prune = best < std::numeric_limits<float>::infinity();
@@ -357,18 +361,11 @@ constexpr float kScreenMargin = 1.0f - 1e-3f;
 
 SL_KERNEL bool screen_wide(const NodeView& node, std::int64_t p, int lanes, float best, float* out,
                            std::int64_t& comparisons) {
-  static constexpr std::int32_t kIota[kLanes] = {0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15};
-  LaneMask iota;
-  std::memcpy(&iota, kIota, sizeof iota);
-  const LaneMask need = LaneMask{} + static_cast<std::int32_t>(node.need);
   const Lanes zero = Lanes{};
   LaneMask valid[kGroups];
   Lanes bound[kGroups];
   for (int g = 0; g < kGroups; ++g) {
-    LaneMask informed;
-    std::memcpy(&informed, node.informed + p + g * kLanes, sizeof informed);
-    valid[g] = (informed & need) == need;
-    if (lanes < (g + 1) * kLanes) valid[g] &= iota < lanes - g * kLanes;
+    valid_lanes(node, p, lanes, g, valid[g]);
     bound[g] = zero;
   }
   const bool prune = best < std::numeric_limits<float>::infinity();
