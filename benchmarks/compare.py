@@ -51,40 +51,40 @@ def _field(shape: tuple[int, ...], sigma: float, seed: int) -> np.ndarray:
 @comparison("direct")
 def direct(args: argparse.Namespace) -> Iterator[Row]:
     """Direct sampler: versus the vectorised NumPy implementation, ns/comparison, 3-D threads."""
+    # 1. Same search, 2-D continuous, engine vs vectorised NumPy (tests/reference/direct_numpy.py).
+    #    Both single-threaded (BLAS limited to one thread, so no idle BLAS thread spins through
+    #    either call) and timed alike: process CPU time, which other load on the machine does not
+    #    inflate (wall times printed in the case text).
+    from threadpoolctl import threadpool_limits
+
     import strataloom as sl
     from reference.direct_numpy import simulate_reference
 
-    # 1. Same search, 2-D continuous, engine vs vectorised NumPy (tests/reference/direct_numpy.py).
-    #    Both single-threaded; timed by CPU time, which other load on the machine does not inflate
-    #    (wall times printed in the case text).
     ti = _field((100, 100), 4.0, 0)
     shape = (1, 30, 30) if args.quick else (1, 50, 50)
     ds = sl.DirectSampler(ti, neighbors=30, accept_distance=0.05, scan_fraction=0.3)
-    # Ours by the engine's CPU counters (setup + worker threads): the process CPU time also counts
-    # NumPy's BLAS threads, which after the set-up above spun through the call and doubled it
-    # (0.05 vs 0.023 s; 0.028 s with OPENBLAS_NUM_THREADS=1).
-    w0 = time.perf_counter()
-    ours = ds.simulate(shape, seed=1, threads=1, return_source=True)[1]
-    w_ours = time.perf_counter() - w0
-    c_ours = ds.last_stats["setup_seconds"] + ds.last_stats["cpu_seconds"]
     lo, span = float(ti.min()), float(ti.max() - ti.min())
-    w0, c0 = time.perf_counter(), time.process_time()
-    _, ref = simulate_reference(
-        [(ti[None] - lo) / span],
-        [False],
-        [np.full(shape, np.nan)],
-        [False],
-        ds.template.offsets,
-        30,
-        0.05,
-        0.3,
-        [1.0],
-        1,
-    )
-    w_ref, c_ref = time.perf_counter() - w0, time.process_time() - c0
+    with threadpool_limits(limits=1):
+        w0, c0 = time.perf_counter(), time.process_time()
+        ours = ds.simulate(shape, seed=1, threads=1, return_source=True)[1]
+        w_ours, c_ours = time.perf_counter() - w0, time.process_time() - c0
+        w0, c0 = time.perf_counter(), time.process_time()
+        _, ref = simulate_reference(
+            [(ti[None] - lo) / span],
+            [False],
+            [np.full(shape, np.nan)],
+            [False],
+            ds.template.offsets,
+            30,
+            0.05,
+            0.3,
+            [1.0],
+            1,
+        )
+        w_ref, c_ref = time.perf_counter() - w0, time.process_time() - c0
     same = float(np.mean(ours.reshape(shape) == ref))
     yield (
-        f"2-D continuous {shape[1]}x{shape[2]}, TI 100x100, n=30, vs NumPy, CPU s (ours: engine counters; wall"
+        f"2-D continuous {shape[1]}x{shape[2]}, TI 100x100, n=30, vs NumPy, process CPU s (wall"
         f" {w_ours:.3g} / {w_ref:.3g} s; same copies {same:.0%})",
         c_ours,
         c_ref,

@@ -134,5 +134,9 @@ def test_downscale_bad_inputs():
         sl.downscale(coarse, fine[:15], coarse)
     with pytest.raises(sl.ParameterError, match=r"'coarse_target'.*NaN"):
         sl.downscale(coarse, fine, np.full((2, 2), np.nan))
+    gap = coarse.copy()
+    gap[1, 2] = np.nan
+    with pytest.raises(sl.ParameterError, match=r"'coarse_train'.*1 NaN or infinite cells"):
+        sl.downscale(gap, fine, coarse)
     with pytest.raises(sl.ParameterError, match=r"'realizations'"):
         sl.downscale(coarse, fine, coarse, realizations=0)

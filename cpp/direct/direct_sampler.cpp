@@ -842,7 +842,8 @@ class Simulation {
         bool open = false;
         if (wide_ok)
           for (int j = 0; j < lanes; ++j) open |= !(wd[e - wide_from + j] > best);
-        ok = open && detail::evaluate_block(w.view, e, lanes, best, d, st.comparisons);
+        std::int64_t recounted = 0;  // the screen counted these comparisons already
+        ok = open && detail::evaluate_block(w.view, e, lanes, best, d, recounted);
       } else if (real > 0 && wide) {
         // Byte kernel: one evaluation covers kWideLanes slots of this phase; the blocks inside it
         // read their distances from it (an abandoned one holds no candidate below its `best`,

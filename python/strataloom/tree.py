@@ -62,7 +62,9 @@ class PatternTree:
         the last in the order the level's cells are refined: see DEVELOPERS.md).
     memory_limit : int, optional
         Bytes the trees may use; default half the physical memory. A build that would need more
-        stops with `MemoryLimitError` before exhausting the machine.
+        stops with `MemoryLimitError` before exhausting the machine. The ordered trees built on
+        the first simulation and the trees of training images turned for rotation and affinity
+        classes share it (ordered trees that do not fit are skipped: same results, slower).
 
     Notes
     -----
@@ -111,9 +113,10 @@ class PatternTree:
                                                self._limit, share_budget_with=self._tree)
             except MemoryLimitError as exc:
                 raise MemoryLimitError(
-                    f"{exc} The trees of the training image turned and stretched for {len(self._turned) + 1} "
-                    "rotation and affinity classes share it with the tree itself: use fewer classes (a "
-                    "constant, or a map with fewer distinct values) or raise memory_limit.") from None
+                    f"{exc} The trees of the training image turned and stretched for the rotation and "
+                    f"affinity classes ({len(self._turned)} built before this one) share it with the tree "
+                    "itself: use fewer classes (a constant, or a map with fewer distinct values) or raise "
+                    "memory_limit.") from None
             self._turned[key] = tree
         return self._turned[key]
 
