@@ -150,8 +150,7 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
                                    std::vector<double>(static_cast<std::size_t>(levels), 0.0),
                                    std::vector<double>(static_cast<std::size_t>(levels), 0.0)};
 
-  // Per (tree, parity class) at the current level: the ordered variant to query and its node order
-  // (variant -1: the level's own tree, nodes in template order).
+  // Per (tree, parity class) at the current level: the ordered variant to query and its node order.
   // An empty order: the level's own tree, nodes in template order. An order without a variant
   // (over memory_limit): the same events answered by scanning the bit planes, so results never
   // depend on which variants fit.
