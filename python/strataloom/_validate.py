@@ -125,8 +125,8 @@ def physical_memory() -> int:
 
 def size_text(b: float) -> str:
     """A byte count for people: ``"512 B"``, ``"38.1 KiB"``, ``"4.4 GiB"``."""
-    for unit in ("B", "KiB", "MiB", "GiB", "TiB"):
-        if b < 1024 or unit == "TiB":
+    for unit in ("B", "KiB", "MiB", "GiB"):
+        if b < 1024:
             return f"{b:.0f} {unit}" if unit == "B" else f"{b:.1f} {unit}"
         b /= 1024
     return f"{b:.1f} TiB"

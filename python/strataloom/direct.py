@@ -454,9 +454,9 @@ def _run(samplers: list[DirectSampler], zones: np.ndarray | None, shape: Any, *,
     single = not isinstance(samplers[0].training_image, Mapping)
     hard_map = _hard_mapping(hard, names, single, aux_names, owner)
     aux_map = _auxiliary_mapping(auxiliary, aux_names, owner)
-    used = sorted({id(s) for s in samplers})
     scale = None
-    if len(used) > 1:  # one set of units for all zones: each continuous variable's range over all TIs
+    # Several TIs (zones): one set of units, each continuous variable's range over all of them.
+    if len({id(s) for s in samplers}) > 1:
         scale = tuple(_common_scale([p[0][i] for p in prepared]) for i in range(len(names)))
         variables = [dataclasses.replace(x, low=scale[i][0], span=scale[i][1]) for i, x in enumerate(variables)]
     state = []

@@ -21,7 +21,7 @@ import numpy as np
 
 from . import _validate as v
 
-__all__ = ["LocalGeometry", "local_geometry", "turn_matrix"]
+__all__ = ["LocalGeometry", "affinity_factors", "local_geometry", "turn_matrix"]
 
 #: Largest affinity factor (and smallest: its inverse is not enforced; factors must be in (0, 16]).
 MAX_AFFINITY = 16.0
@@ -76,7 +76,7 @@ def local_geometry(rotation: Any, affinity: Any, shape: tuple[int, int, int], ow
     if rotation is None and affinity is None:
         return None
     azimuth, dip = _rotation(rotation, shape, owner)
-    geo = LocalGeometry(azimuth, dip, _affinity(affinity, shape, owner))
+    geo = LocalGeometry(azimuth, dip, affinity_factors(affinity, shape, owner))
     if shape[0] == 1 and geo.has_dip:
         raise v.fail("rotation", "an azimuth alone for a 2-D grid (dip needs a 3-D grid)", rotation, owner)
     return geo
@@ -148,8 +148,8 @@ def _rotation(rotation: Any, shape: tuple[int, int, int], owner: str) -> tuple[n
     return _angle_map(rotation, shape, owner), np.asarray(0.0)
 
 
-def _affinity(affinity: Any, shape: tuple[int, int, int], owner: str) -> np.ndarray:
-    """Factors (z, y, x): shape (3,) for constants, else (cells, 3)."""
+def affinity_factors(affinity: Any, shape: tuple[int, int, int], owner: str) -> np.ndarray:
+    """Checked affinity factors (z, y, x): shape (3,) for constants, else (cells, 3)."""
     if affinity is None:
         return np.ones(3)
     try:

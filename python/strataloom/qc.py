@@ -928,13 +928,13 @@ def check_run(
                     ti_axis = _mean_axis(ti_az, ti_coh)
                 expected = (expected + ti_axis) % 180.0
                 gaps = np.zeros(n)
-                doubled = np.zeros((2, *shape))
+                mid = shape[0] // 2  # the layer the report shows
+                doubled = np.zeros((2, *shape[1:]))
                 res.orientation = {"ti_azimuth": ti_axis}
             az, coh = local_azimuth(real == fac)
             gaps[j] = orientation_gap(az, expected, coh)
-            for k in range(shape[0]):  # one layer of temporaries at a time
-                doubled[0, k] += coh[k] * np.cos(np.radians(2 * az[k]))
-                doubled[1, k] += coh[k] * np.sin(np.radians(2 * az[k]))
+            doubled[0] += coh[mid] * np.cos(np.radians(2 * az[mid]))
+            doubled[1] += coh[mid] * np.sin(np.radians(2 * az[mid]))
         if progress is not None:
             progress(j + 1, n)
     res.facies = int(fac)  # type: ignore[arg-type]
@@ -952,12 +952,11 @@ def check_run(
 
     # -- local orientation
     if res.orientation is not None:
-        mid = shape[0] // 2
         res.orientation.update(
             gap=gaps,
             requested=np.broadcast_to(expected, shape)[mid].copy(),
-            measured=(np.degrees(np.arctan2(doubled[1, mid], doubled[0, mid])) / 2) % 180.0,
-            strength=np.hypot(doubled[0, mid], doubled[1, mid]) / n,
+            measured=(np.degrees(np.arctan2(doubled[1], doubled[0])) / 2) % 180.0,
+            strength=np.hypot(doubled[0], doubled[1]) / n,
             layer=mid,
         )
         med = float(np.median(gaps))

@@ -32,7 +32,7 @@ from .conditioning import (
 from .engines import EngineFactory, engine_class
 from .ensemble import EnsembleResult, realization_seeds, run_ensemble
 from .errors import MemoryLimitError, ParameterError, ParameterTypeError, StudyError
-from .geometry import _affinity
+from .geometry import affinity_factors
 from .store import RealizationStore, realization_attrs
 from .study import Study, _Reader, read_array
 
@@ -144,14 +144,14 @@ def check_memory(study: Study, per_process: int, processes: int) -> None:
     if per_process > have:
         raise _study_error(
             study, ("grid", "shape"),
-            f"needs about {_size(per_process)} per process, more than the {_size(have)} of memory of "
+            f"needs about {v.size_text(per_process)} per process, more than the {v.size_text(have)} of memory of "
             "this machine; use a coarser grid or split the model into parts.",
         )
     most = max(1, have // per_process)
     raise _study_error(
         study, ("ensemble", "processes"),
-        f"asks for {processes} processes of about {_size(per_process)} each, "
-        f"{_size(per_process * processes)} in all, more than the {_size(have)} of memory of this "
+        f"asks for {processes} processes of about {v.size_text(per_process)} each, "
+        f"{v.size_text(per_process * processes)} in all, more than the {v.size_text(have)} of memory of this "
         f"machine; use at most {most} processes (--processes {most}).",
     )
 
@@ -220,7 +220,7 @@ def read_geometry(study: Study) -> tuple[Any, Any]:
     if isinstance(g.affinity, Path):
         aff = _map(study, g.affinity, "geometry.affinity", (3, *shape), "float")
         try:  # the engines' one check of affinity factors
-            _affinity(aff, shape, "the study")
+            affinity_factors(aff, shape, "the study")
         except ParameterError as e:
             name = g.affinity.name
             raise StudyError(f"{study.path.name}: 'geometry.affinity' map '{name}' is refused: {e}") from None
@@ -631,8 +631,8 @@ def check_study(
         if timing is not None:
             per_proc += timing[1]
     lines.append(
-        f"memory: store {_size(store_bytes)} on disk before compression, about "
-        f"{_size(per_proc)} per process, {_size(per_proc * p)} in all"
+        f"memory: store {v.size_text(store_bytes)} on disk before compression, about "
+        f"{v.size_text(per_proc)} per process, {v.size_text(per_proc * p)} in all"
     )
     if timing is not None:
         sec_cell, _, build = timing
@@ -712,7 +712,7 @@ def _probe(prep: Prepared, base: int) -> tuple[float, int, float] | None:
         crop(prep.rotation),
         crop(prep.affinity),
         zones,
-        tuple(e for e in prep.zone_engines if zones is not None and e[0] in np.unique(zones)),
+        tuple(e for e in prep.zone_engines if zones is not None and e[0] in set(np.unique(zones).tolist())),
     )
     t0 = time.perf_counter()
     adapter = fac()
@@ -724,7 +724,6 @@ def _probe(prep: Prepared, base: int) -> tuple[float, int, float] | None:
     return sec, mem, build
 
 
-_size = v.size_text
 
 
 def _duration(s: float) -> str:
