@@ -1,6 +1,7 @@
 #include "core/path.hpp"
 
 #include <algorithm>
+#include <array>
 
 #include "core/error.hpp"
 #include "core/random.hpp"
@@ -45,31 +46,33 @@ std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, con
   require_level(level);
   require(max_batch >= 1, "max_batch", "must be at least 1.");
   for (int a = 0; a < 3; ++a) require(reach[a] >= 0, "reach", "must be non-negative.");
-  const Index step = Grid::level_step(level);
   // Buckets of (reach + 1) level cells: nodes in buckets that are not neighbours cannot conflict,
   // so a node is admitted when none of its 27 neighbouring buckets holds a node of this batch.
-  Ijk bucket{}, nb{};
+  // The buckets are stored with a border of one on each axis that has more than one, so that the
+  // neighbours of a bucket are fixed flat offsets.
+  Ijk nb{}, padded{};
+  std::int64_t bucket[3];
   for (int a = 0; a < 3; ++a) {
     bucket[a] = Index{reach[a]} + 1;
     nb[a] = (grid.level_extent(level, a) + bucket[a] - 1) / bucket[a];
+    padded[a] = nb[a] > 1 ? nb[a] + 2 : 1;
   }
-  // blocked[b] == id: bucket b neighbours a bucket holding a node of batch id. Marking the 27
+  std::vector<std::int64_t> around;  // flat offsets of a bucket's neighbours and itself
+  for (Index z = padded[0] > 1 ? -1 : 0; z <= (padded[0] > 1 ? 1 : 0); ++z)
+    for (Index y = padded[1] > 1 ? -1 : 0; y <= (padded[1] > 1 ? 1 : 0); ++y)
+      for (Index x = padded[2] > 1 ? -1 : 0; x <= (padded[2] > 1 ? 1 : 0); ++x)
+        around.push_back((z * padded[1] + y) * padded[2] + x);
+  // blocked[b] == id: bucket b neighbours a bucket holding a node of batch id. Marking the
   // neighbours of each node taken lets a candidate check only its own bucket.
-  std::vector<std::int64_t> blocked(static_cast<std::size_t>(nb[0] * nb[1] * nb[2]), -1);
-  auto bucket_of = [&](Index cell) {
-    const Ijk c = grid.cell(cell);
-    return Ijk{c[0] / step / bucket[0], c[1] / step / bucket[1], c[2] / step / bucket[2]};
-  };
-  auto flat = [&](const Ijk& b) { return static_cast<std::size_t>((b[0] * nb[1] + b[1]) * nb[2] + b[2]); };
-  auto block_around = [&](const Ijk& b, std::int64_t id) {
-    for (Index z = std::max<Index>(0, b[0] - 1); z <= std::min(nb[0] - 1, b[0] + 1); ++z)
-      for (Index y = std::max<Index>(0, b[1] - 1); y <= std::min(nb[1] - 1, b[1] + 1); ++y)
-        for (Index x = std::max<Index>(0, b[2] - 1); x <= std::min(nb[2] - 1, b[2] + 1); ++x)
-          blocked[static_cast<std::size_t>((z * nb[1] + y) * nb[2] + x)] = id;
-  };
-  // The bucket of every path node, computed once (each node may be considered many times).
+  std::vector<std::int64_t> blocked(static_cast<std::size_t>(padded[0] * padded[1] * padded[2]), -1);
+  // The (padded) bucket of every path node, computed once: each node may be looked at many times.
   std::vector<std::uint32_t> bucket_index(path.size());
-  for (std::size_t i = 0; i < path.size(); ++i) bucket_index[i] = static_cast<std::uint32_t>(flat(bucket_of(path[i])));
+  for (std::size_t i = 0; i < path.size(); ++i) {
+    const Ijk c = grid.cell(path[i]);
+    Index f = 0;
+    for (int a = 0; a < 3; ++a) f = f * padded[a] + (c[a] >> level) / bucket[a] + (padded[a] > 1 ? 1 : 0);
+    bucket_index[i] = static_cast<std::uint32_t>(f);
+  }
   const std::int64_t window = 4 * max_batch;  // candidates looked at per batch
   std::vector<Index> out;
   out.reserve(path.size());
@@ -77,16 +80,20 @@ std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, con
   // Nodes deferred by earlier batches (positions in `path`), in path order; path nodes not yet
   // looked at start at `next` and are only taken once no deferred node is left.
   std::vector<std::size_t> pending, deferred;
+  pending.reserve(static_cast<std::size_t>(window));
+  deferred.reserve(static_cast<std::size_t>(window));
   std::size_t next = 0;
   std::int64_t id = 0;
+  std::int64_t* blocked_at = blocked.data();
+  const std::uint32_t* bucket_of = bucket_index.data();
   while (next < path.size() || !pending.empty()) {
     starts.push_back(static_cast<std::int64_t>(out.size()));
     std::int64_t taken = 0, seen = 0;
     deferred.clear();
     auto consider = [&](std::size_t i) {
-      const std::uint32_t b = bucket_index[i];
-      if (blocked[b] != id) {
-        block_around(bucket_of(path[i]), id);
+      const std::uint32_t b = bucket_of[i];
+      if (blocked_at[b] != id) {
+        for (std::int64_t o : around) blocked_at[static_cast<std::int64_t>(b) + o] = id;
         out.push_back(path[i]);
         ++taken;
       } else {
@@ -105,6 +112,16 @@ std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, con
   starts.push_back(static_cast<std::int64_t>(out.size()));
   path.swap(out);
   return starts;
+}
+
+std::int64_t batch_capacity(const Grid& grid, int level, const Offset& reach) {
+  require_level(level);
+  std::int64_t buckets = 1;
+  for (int a = 0; a < 3; ++a) {
+    const Index bucket = Index{reach[a]} + 1;
+    buckets *= (grid.level_extent(level, a) + bucket - 1) / bucket;
+  }
+  return buckets / 4 + 1;
 }
 
 }  // namespace sl

@@ -26,4 +26,9 @@ void shuffle_path(std::vector<Index>& cells, std::uint64_t seed, int level);
 std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, const Offset& reach,
                                                 std::vector<Index>& path, std::int64_t max_batch = 512);
 
+// About the most nodes a conflict-free batch of `level` can hold: a node blocks its bucket and the
+// neighbouring ones, and random picks pack about one node per four buckets. A max_batch above it
+// only widens the window of candidates each batch looks at (4 * max_batch) for nothing.
+std::int64_t batch_capacity(const Grid& grid, int level, const Offset& reach);
+
 }  // namespace sl

@@ -1,11 +1,13 @@
 // Unit tests of the pattern tree: tree walk against the centre-by-centre check, node dropping,
 // simulation invariants (hard data, determinism across thread counts), cancellation.
 #include <algorithm>
+#include <bit>
 #include <random>
 
 #include "core/error.hpp"
 #include "merge/tau.hpp"
 #include "tests/check.hpp"
+#include "tree/bit_planes.hpp"
 #include "tree/pattern_tree.hpp"
 #include "tree/tree_sim.hpp"
 
@@ -143,4 +145,60 @@ SL_TEST(tau_merge_worked_values) {
   const double certain[4] = {1.0, 0.0, 0.3, 0.7};
   tau_merge(prior, certain, tau, 2, 2, out);
   SL_CHECK(out[0] == 1.0 && out[1] == 0.0);
+}
+
+SL_TEST(bit_plane_kernels_agree) {
+  // The AVX-512 kernels (where the processor has them) and the plain loops give the same sets.
+  const planes::Kernels& fast = planes::best();
+  const planes::Kernels& plain = planes::portable();
+  std::mt19937_64 gen(11);
+  for (int trial = 0; trial < 400; ++trial) {
+    const std::size_t words = 1 + gen() % 200;
+    const std::size_t m = 1 + gen() % 12;
+    std::vector<std::uint64_t> all((m + 1) * words + planes::kPadWords);
+    // Planes of varied density: a random word ANDed with 0 to 2 more keeps about 1/2 to 1/8.
+    for (auto& w : all) {
+      w = gen();
+      for (unsigned k = gen() % 3; k > 0; --k) w &= gen();
+      if (gen() % 5 == 0) w = 0;
+    }
+    std::vector<const std::uint64_t*> plane(m);
+    for (std::size_t j = 0; j < m; ++j) plane[j] = all.data() + (j + 1) * words;
+    std::size_t lo = gen() % words, hi = lo + 1 + gen() % (words - lo);
+    all[lo] |= 1;  // the first and last word of the set are non-zero
+    all[hi - 1] |= std::uint64_t{1} << 63;
+    const std::int64_t min_rep = 1 + static_cast<std::int64_t>(gen() % 4);
+    const std::size_t ratio = gen() % 2 ? 16 : 40;
+    std::vector<std::uint64_t> a(words + planes::kPadWords), a2(a), b(a), b2(a);
+    std::copy(all.begin(), all.begin() + static_cast<std::ptrdiff_t>(words), a.begin());
+    std::copy(all.begin(), all.begin() + static_cast<std::ptrdiff_t>(words), b.begin());
+    std::uint64_t *ra = a.data(), *sa = a2.data(), *rb = b.data(), *sb = b2.data();
+    std::size_t lo_a = lo, hi_a = hi, lo_b = lo, hi_b = hi;
+    const auto x = fast.narrow(ra, sa, plane.data(), m, lo_a, hi_a, min_rep, ratio);
+    const auto y = plain.narrow(rb, sb, plane.data(), m, lo_b, hi_b, min_rep, ratio);
+    SL_CHECK(x.kept == y.kept && x.sparse == y.sparse && lo_a == lo_b && hi_a == hi_b);
+    SL_CHECK(std::equal(ra + lo_a, ra + hi_a, rb + lo_b));
+    SL_CHECK(ra[lo_a] != 0 && ra[hi_a - 1] != 0);
+    // Exactness against a word-by-word reference: the set kept is the AND of the first `kept`
+    // planes, and one more plane would leave fewer than min_rep centres (unless it stopped early).
+    std::int64_t total = 0;
+    for (std::size_t w = lo; w < hi; ++w) {
+      std::uint64_t v = all[w];
+      for (std::size_t j = 0; j < x.kept; ++j) v &= plane[j][w];
+      SL_CHECK((w >= lo_a && w < hi_a) ? v == ra[w] : v == 0);
+      total += std::popcount(v);
+    }
+    SL_CHECK(x.kept == 0 || total >= min_rep);
+    if (!x.sparse && x.kept < m) {
+      std::int64_t after = 0;
+      for (std::size_t w = lo; w < hi; ++w) {
+        std::uint64_t v = all[w];
+        for (std::size_t j = 0; j <= x.kept; ++j) v &= plane[j][w];
+        after += std::popcount(v);
+      }
+      SL_CHECK(after < min_rep);
+    }
+    const std::size_t n = 1 + gen() % words;
+    SL_CHECK(fast.count_and(all.data(), all.data() + words, n) == plain.count_and(all.data(), all.data() + words, n));
+  }
 }

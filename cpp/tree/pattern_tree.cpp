@@ -11,6 +11,7 @@
 #include <string>
 
 #include "core/error.hpp"
+#include "tree/bit_planes.hpp"
 
 namespace sl {
 
@@ -53,12 +54,13 @@ SL_POPCOUNT_KERNEL std::size_t keep_matching(const std::uint32_t* word_index, co
 }
 
 SL_POPCOUNT_KERNEL void count_categories(const std::uint32_t* word_index, const std::uint64_t* word_alive,
-                                         std::size_t n, const std::uint64_t* category, std::size_t K,
-                                         std::int64_t* counts) {
-  for (std::size_t q = 0; q < K; ++q) counts[q] = 0;
-  for (std::size_t i = 0; i < n; ++i) {
-    const std::uint64_t* c = category + static_cast<std::size_t>(word_index[i]) * K;
-    for (std::size_t q = 0; q < K; ++q) counts[q] += std::popcount(word_alive[i] & c[q]);
+                                         std::size_t n, const std::uint64_t* category, std::size_t words,
+                                         std::size_t K, std::int64_t* counts) {
+  for (std::size_t q = 0; q < K; ++q) {
+    const std::uint64_t* c = category + q * words;
+    std::int64_t t = 0;
+    for (std::size_t i = 0; i < n; ++i) t += std::popcount(word_alive[i] & c[word_index[i]]);
+    counts[q] = t;
   }
 }
 
@@ -346,8 +348,8 @@ PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t>
   const std::size_t planes = D * K + K;
   const std::int64_t plane_bytes = static_cast<std::int64_t>(words * planes * sizeof(std::uint64_t));
   check(total + static_cast<std::size_t>(plane_bytes / bytes_per_node));
-  L.planes.assign(words * D * K, 0);
-  L.category.assign(words * K, 0);
+  L.planes.assign(words * D * K + planes::kPadWords, 0);
+  L.category.assign(words * K + planes::kPadWords, 0);
   for (std::size_t p = 0; p < N; ++p) {
     const std::int64_t c = L.sorted[p];
     const std::size_t w = p / 64;
@@ -356,7 +358,7 @@ PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t>
       const std::uint8_t v = padded[c + L.delta[i]];
       if (v != CategoricalImage::kMasked) L.planes[(i * K + v) * words + w] |= bit;
     }
-    L.category[w * K + padded[c]] |= bit;
+    L.category[padded[c] * words + w] |= bit;
   }
   L.first_centre.shrink_to_fit();
   L.counts.shrink_to_fit();
@@ -415,10 +417,12 @@ EventAnswer PatternTree::query_level(const Level& L, const std::int32_t* index, 
   const std::int64_t* sorted = L.sorted.data();
   const std::uint8_t* padded = padded_.data();
   const std::uint32_t* cnt = L.counts.data();
-  // Walking on costs about frontier * remaining depth; checking the frontier's centres on the TI
-  // costs about a few operations per centre (the replicates so far).
+  // Walking on costs about frontier * remaining depth; checking the frontier's centres on the bit
+  // planes costs about their number (the replicates so far) over the centres a pass checks in the
+  // time of one step of the walk.
+  const auto per_step = static_cast<std::size_t>(planes::best().centres_per_step);
   auto walking_is_dearer = [&]() {
-    return sc.frontier.size() * (last + 1 - depth) > static_cast<std::size_t>(ans.replicates) / 8 + 64;
+    return sc.frontier.size() * (last + 1 - depth) > static_cast<std::size_t>(ans.replicates) / per_step + 16;
   };
   for (int k = 0; k < m; ++k) {
     const std::size_t t = static_cast<std::size_t>(index[k]);
@@ -475,60 +479,99 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
   const std::size_t words = L.words;
   const std::uint64_t* planes = L.planes.data();
   const std::uint64_t* category = L.category.data();
+  const planes::Kernels& kern = planes::best();
   ans.scanned = true;
-  // The frontier's centres as (word, bits) pairs; neighbouring ranges may share a word.
-  sc.word_index.clear();
-  sc.word_alive.clear();
+  // The frontier's centres as one dense bit set over the words [lo, hi) they span.
+  if (sc.run.size() < words + planes::kPadWords) {
+    sc.run.resize(words + planes::kPadWords);
+    sc.next_run.resize(words + planes::kPadWords);
+  }
+  std::uint64_t* run = sc.run.data();
+  std::uint64_t* next = sc.next_run.data();
+  std::size_t lo = words, hi = 0;
+  for (std::uint32_t j : sc.frontier) {
+    const std::uint32_t b = L.first_centre[j];
+    const std::uint32_t e = j + 1 < depth_end ? L.first_centre[j + 1] : N;
+    if (b >= e) continue;
+    if (lo == words) lo = b / 64;
+    hi = (e - 1) / 64 + 1;
+  }
+  if (lo >= hi) return ans;
+  std::fill(run + lo, run + hi, 0);
   for (std::uint32_t j : sc.frontier) {
     const std::uint32_t b = L.first_centre[j];
     const std::uint32_t e = j + 1 < depth_end ? L.first_centre[j + 1] : N;
     if (b >= e) continue;
     ans.visited += e - b;
-    for (std::uint32_t w = b / 64; w <= (e - 1) / 64; ++w) {
-      const std::uint32_t lo = std::max(b, w * 64) - w * 64, hi = std::min<std::uint32_t>(e, w * 64 + 64) - w * 64;
-      const std::uint64_t bits = (hi == 64 ? ~std::uint64_t{0} : ((std::uint64_t{1} << hi) - 1)) & (~std::uint64_t{0} << lo);
-      if (!sc.word_index.empty() && sc.word_index.back() == w) {
-        sc.word_alive.back() |= bits;
-      } else {
-        sc.word_index.push_back(w);
-        sc.word_alive.push_back(bits);
+    const std::uint32_t wb = b / 64, we = (e - 1) / 64;
+    const std::uint64_t head = ~std::uint64_t{0} << (b % 64);
+    const std::uint64_t tail = ~std::uint64_t{0} >> (63 - (e - 1) % 64);
+    if (wb == we) {
+      run[wb] |= head & tail;
+    } else {
+      run[wb] |= head;
+      std::fill(run + wb + 1, run + we, ~std::uint64_t{0});
+      run[we] |= tail;
+    }
+  }
+  // Add the informed nodes one at a time, narrowing [lo, hi) to the words still holding a match,
+  // and stop when too few replicates remain (node dropping). Only totals are needed for that, so
+  // the categories are counted once, for the set kept. (Stopping once one category holds every
+  // match would save passes, but testing for it costs about as much as a pass.) Sets that keep
+  // few words over a wide span continue as a list of their non-empty words.
+  sc.plane_at.resize(static_cast<std::size_t>(m));
+  for (int j = k; j < m; ++j)
+    sc.plane_at[static_cast<std::size_t>(j)] = planes + (static_cast<std::size_t>(index[j]) * K + value[j]) * words;
+  const std::size_t span = hi - lo;
+  const planes::Narrowed nw = kern.narrow(run, next, sc.plane_at.data() + k, static_cast<std::size_t>(m - k), lo, hi,
+                                          min_replicates, 16);
+  ans.visited += 64 * static_cast<std::int64_t>(span);  // the first pass; later ones cover less
+  std::size_t n = static_cast<std::size_t>(k) + nw.kept;
+  if (nw.kept > 0) ans.kept = static_cast<int>(n);
+  bool counted = nw.kept == 0;  // sc.best holds the counts of the set kept
+  const bool sparse = nw.sparse;
+  if (sparse) {
+    sc.word_index.clear();
+    sc.word_alive.clear();
+    for (std::size_t w = lo; w < hi; ++w)
+      if (run[w] != 0) {
+        sc.word_index.push_back(static_cast<std::uint32_t>(w));
+        sc.word_alive.push_back(run[w]);
+      }
+    sc.next_index.resize(sc.word_index.size());
+    sc.next_alive.resize(sc.word_alive.size());
+    int passes = 0;
+    for (; n < static_cast<std::size_t>(m); ++n) {
+      const std::uint64_t* plane = planes + (static_cast<std::size_t>(index[n]) * K + value[n]) * words;
+      std::int64_t total = 0;
+      const std::size_t out = detail::keep_matching(sc.word_index.data(), sc.word_alive.data(), sc.word_index.size(),
+                                                    plane, sc.next_index.data(), sc.next_alive.data(), total);
+      ans.visited += 64 * static_cast<std::int64_t>(sc.word_index.size());  // centres, 64 at a time
+      if (total < min_replicates || total == 0) break;
+      sc.word_index.swap(sc.next_index);
+      sc.word_alive.swap(sc.next_alive);
+      sc.word_index.resize(out);
+      sc.word_alive.resize(out);
+      ans.kept = static_cast<int>(n + 1);
+      counted = false;
+      if (stop_when_pure && (++passes % 4 == 0 || out <= 8)) {
+        detail::count_categories(sc.word_index.data(), sc.word_alive.data(), out, category, words, K, sc.best.data());
+        counted = true;
+        int present = 0;
+        for (std::size_t q = 0; q < K; ++q) present += sc.best[q] > 0;
+        if (present <= 1) break;
       }
     }
+    if (!counted)
+      detail::count_categories(sc.word_index.data(), sc.word_alive.data(), sc.word_index.size(), category, words, K,
+                               sc.best.data());
+  } else if (!counted) {
+    for (std::size_t q = 0; q < K; ++q) sc.best[q] = kern.count_and(run + lo, category + q * words + lo, hi - lo);
   }
-  // Add the informed nodes one at a time, keeping only words with centres still matching; stop
-  // when too few replicates remain (node dropping). Only totals are needed for that, so the
-  // categories are counted once for the set kept, and, in simulation, now and then to stop early
-  // once one category holds every match (adding nodes cannot change the probabilities then).
-  sc.next_index.resize(sc.word_index.size());
-  sc.next_alive.resize(sc.word_alive.size());
-  sc.counts.resize(K);
-  bool counted = true;  // sc.best holds the counts of the set kept
-  int passes = 0;
-  for (std::size_t n = static_cast<std::size_t>(k); n < static_cast<std::size_t>(m); ++n) {
-    const std::uint64_t* plane = planes + (static_cast<std::size_t>(index[n]) * K + value[n]) * words;
-    std::int64_t total = 0;
-    const std::size_t out = detail::keep_matching(sc.word_index.data(), sc.word_alive.data(), sc.word_index.size(),
-                                                  plane, sc.next_index.data(), sc.next_alive.data(), total);
-    ans.visited += 64 * static_cast<std::int64_t>(sc.word_index.size());  // centres, 64 at a time
-    if (total < min_replicates || total == 0) break;
-    sc.word_index.swap(sc.next_index);
-    sc.word_alive.swap(sc.next_alive);
-    sc.word_index.resize(out);
-    sc.word_alive.resize(out);
-    ans.replicates = total;
-    ans.kept = static_cast<int>(n + 1);
-    counted = false;
-    if (stop_when_pure && (++passes % 4 == 0 || out <= 8)) {
-      detail::count_categories(sc.word_index.data(), sc.word_alive.data(), out, category, K, sc.best.data());
-      counted = true;
-      int nonzero = 0;
-      for (std::size_t q = 0; q < K; ++q) nonzero += sc.best[q] > 0;
-      if (nonzero <= 1) break;
-    }
+  if (ans.kept > k) {
+    ans.replicates = 0;
+    for (std::size_t q = 0; q < K; ++q) ans.replicates += sc.best[q];
   }
-  if (!counted)
-    detail::count_categories(sc.word_index.data(), sc.word_alive.data(), sc.word_index.size(), category, K,
-                             sc.best.data());
   return ans;
 }
 

@@ -62,6 +62,8 @@ struct QueryScratch {
   std::vector<std::int64_t> counts, best;            // K each
   std::vector<std::uint32_t> word_index, next_index;  // candidate words of the bit planes
   std::vector<std::uint64_t> word_alive, next_alive;  // their centres still matching
+  std::vector<std::uint64_t> run, next_run;           // the same as dense bit sets, one word per 64 centres
+  std::vector<const std::uint64_t*> plane_at;         // the bit plane of each informed node
 };
 
 // Bytes that one or more trees may hold together (their trees, bit planes and ordered variants).
@@ -131,8 +133,8 @@ class PatternTree {
     std::vector<std::int64_t> sorted;         // padded index of each centre, in pattern order
     std::vector<std::int64_t> delta;          // padded flat offset of each query position
     // Bit planes over `sorted`, one bit per centre, `words` 64-bit words per plane: plane i * K + v
-    // is "the node at query position i holds code v". `category` holds K words per word of the
-    // planes: bit b of word w * K + q is "centre 64 w + b holds code q".
+    // is "the node at query position i holds code v"; category plane q is "the centre holds
+    // code q".
     std::vector<std::uint64_t> planes, category;
     std::size_t words = 0;
   };
@@ -172,9 +174,10 @@ namespace detail {
 std::size_t keep_matching(const std::uint32_t* word_index, const std::uint64_t* word_alive, std::size_t n,
                           const std::uint64_t* plane, std::uint32_t* out_index, std::uint64_t* out_alive,
                           std::int64_t& total);
-// Counts the candidate centres per centre category into counts[0..K) (`category`: K words per word).
+// Counts the candidate centres per centre category into counts[0..K) (`category`: K planes of
+// `words` words).
 void count_categories(const std::uint32_t* word_index, const std::uint64_t* word_alive, std::size_t n,
-                      const std::uint64_t* category, std::size_t K, std::int64_t* counts);
+                      const std::uint64_t* category, std::size_t words, std::size_t K, std::int64_t* counts);
 }  // namespace detail
 
 // Half of the physical memory: the default limit for building trees.

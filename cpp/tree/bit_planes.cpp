@@ -1,0 +1,195 @@
+#include "tree/bit_planes.hpp"
+
+#include <bit>
+#include <cstdlib>
+#include <string_view>
+#include <utility>
+
+#if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__)) && !defined(STRATALOOM_NO_CLONES)
+#define SL_HAVE_AVX512_PLANES 1
+#include <immintrin.h>
+#endif
+
+namespace sl::planes {
+
+namespace {
+
+// Plain loops: with clones for processors with popcount and with AVX2, which the compiler
+// vectorises the AND and the zero test for.
+#if defined(__x86_64__) && defined(__ELF__) && (defined(__GNUC__) || defined(__clang__)) && !defined(STRATALOOM_NO_CLONES)
+#define SL_PORTABLE_KERNEL __attribute__((target_clones("default", "popcnt", "arch=x86-64-v3")))
+#else
+#define SL_PORTABLE_KERNEL
+#endif
+
+SL_PORTABLE_KERNEL Narrowed narrow_portable(std::uint64_t*& run, std::uint64_t*& spare, const std::uint64_t* const* plane,
+                                            std::size_t m, std::size_t& lo, std::size_t& hi,
+                                            std::int64_t min_replicates, std::size_t sparse_ratio) {
+  Narrowed out;
+  for (std::size_t j = 0; j < m; ++j) {
+    const std::uint64_t* p = plane[j];
+    std::size_t nonzero = 0;
+    for (std::size_t i = lo; i < hi; ++i) {
+      const std::uint64_t a = run[i] & p[i];
+      spare[i] = a;
+      nonzero += a != 0;
+    }
+    if (nonzero == 0) break;
+    std::size_t first = lo, last = hi - 1;
+    while (spare[first] == 0) ++first;
+    while (spare[last] == 0) --last;
+    if (min_replicates > 1) {
+      std::int64_t total = 0;
+      for (std::size_t i = first; i <= last; ++i) total += std::popcount(spare[i]);
+      if (total < min_replicates) break;
+    }
+    std::swap(run, spare);
+    lo = first;
+    hi = last + 1;
+    out.kept = j + 1;
+    if (hi - lo > 16 && nonzero * sparse_ratio < hi - lo) {
+      out.sparse = true;
+      break;
+    }
+  }
+  return out;
+}
+
+SL_PORTABLE_KERNEL std::int64_t count_and_portable(const std::uint64_t* a, const std::uint64_t* b, std::size_t n) {
+  std::int64_t t = 0;
+  for (std::size_t i = 0; i < n; ++i) t += std::popcount(a[i] & b[i]);
+  return t;
+}
+
+#ifdef SL_HAVE_AVX512_PLANES
+#define SL_AVX512_KERNEL __attribute__((target("avx512f,avx512vpopcntdq,popcnt,bmi,lzcnt")))
+
+SL_AVX512_KERNEL inline __mmask8 lanes_left(std::size_t left) {
+  return left >= 8 ? static_cast<__mmask8>(0xFF) : static_cast<__mmask8>((1u << left) - 1);
+}
+
+SL_AVX512_KERNEL inline std::int64_t sum_lanes(__m512i v) {
+  alignas(64) std::int64_t lane[8];
+  _mm512_store_si512(lane, v);
+  return lane[0] + lane[1] + lane[2] + lane[3] + lane[4] + lane[5] + lane[6] + lane[7];
+}
+
+// Which of the (up to) eight words from `at` (below `end`) are non-zero, as bits.
+SL_AVX512_KERNEL inline unsigned words_set(const std::uint64_t* words, std::size_t at, std::size_t end) {
+  const __m512i a = _mm512_loadu_si512(words + at);
+  return static_cast<unsigned>(_mm512_mask_test_epi64_mask(lanes_left(end - at), a, a));
+}
+
+SL_AVX512_KERNEL Narrowed narrow_avx512(std::uint64_t*& run_ref, std::uint64_t*& spare_ref, const std::uint64_t* const* plane,
+                                        std::size_t m, std::size_t& lo_ref, std::size_t& hi_ref, std::int64_t min_replicates,
+                                        std::size_t sparse_ratio) {
+  // Local copies: stores through the word pointers could otherwise alias these.
+  std::uint64_t* run = run_ref;
+  std::uint64_t* spare = spare_ref;
+  std::size_t lo = lo_ref, hi = hi_ref;
+  Narrowed out;
+  for (std::size_t j = 0; j < m; ++j) {
+    if (hi - lo <= 16) {
+      // Two vectors or less: keep them in registers for the remaining planes (no stores, no
+      // trimming between planes; a pass costs a few instructions).
+      const __mmask8 lanes0 = lanes_left(hi - lo), lanes1 = hi - lo > 8 ? lanes_left(hi - lo - 8) : 0;
+      __m512i a0 = _mm512_maskz_mov_epi64(lanes0, _mm512_loadu_si512(run + lo));
+      __m512i a1 = _mm512_maskz_mov_epi64(lanes1, _mm512_loadu_si512(run + lo + 8));
+      for (; j < m; ++j) {
+        const __m512i b0 = _mm512_and_si512(a0, _mm512_loadu_si512(plane[j] + lo));
+        const __m512i b1 = _mm512_and_si512(a1, _mm512_loadu_si512(plane[j] + lo + 8));
+        if (min_replicates > 1) {
+          if (sum_lanes(_mm512_add_epi64(_mm512_popcnt_epi64(b0), _mm512_popcnt_epi64(b1))) < min_replicates) break;
+        } else if (_mm512_test_epi64_mask(_mm512_or_si512(b0, b1), _mm512_or_si512(b0, b1)) == 0) {
+          break;
+        }
+        a0 = b0;
+        a1 = b1;
+        out.kept = j + 1;
+      }
+      _mm512_storeu_si512(run + lo, a0);
+      _mm512_storeu_si512(run + lo + 8, a1);
+      const unsigned set = _mm512_test_epi64_mask(a0, a0) | static_cast<unsigned>(_mm512_test_epi64_mask(a1, a1)) << 8;
+      if (set != 0) {  // always, as run[lo, hi) is never empty here
+        hi = lo + 16 - static_cast<std::size_t>(std::countl_zero(set << 16));
+        lo += static_cast<std::size_t>(std::countr_zero(set));
+      }
+      break;
+    }
+    const std::uint64_t* p = plane[j];
+    // No data-dependent branch inside a pass: which words survive varies from call to call. The
+    // first and last non-zero vectors are kept with conditional moves, then refined to words.
+    std::size_t nonzero = 0;
+    std::size_t f = hi, l = hi;
+    for (std::size_t i = lo; i < hi; i += 8) {
+      // Whole vectors (the arrays have room past hi): masked stores would stall the loads of the
+      // next pass, which read them back. Lanes past hi are left out of the counts.
+      const __m512i a = _mm512_and_si512(_mm512_loadu_si512(run + i), _mm512_loadu_si512(p + i));
+      _mm512_storeu_si512(spare + i, a);
+      const unsigned set = _mm512_mask_test_epi64_mask(lanes_left(hi - i), a, a);
+      nonzero += static_cast<std::size_t>(std::popcount(set));
+      f = (f == hi && set != 0) ? i : f;
+      l = set != 0 ? i : l;
+    }
+    if (nonzero == 0) break;
+    const std::size_t first = f + static_cast<std::size_t>(std::countr_zero(words_set(spare, f, hi)));
+    const std::size_t last = l + 31 - static_cast<std::size_t>(std::countl_zero(words_set(spare, l, hi)));
+    if (min_replicates > 1) {
+      __m512i acc = _mm512_setzero_si512();
+      for (std::size_t i = first; i <= last; i += 8)
+        acc = _mm512_add_epi64(acc, _mm512_popcnt_epi64(_mm512_maskz_mov_epi64(lanes_left(last + 1 - i), _mm512_loadu_si512(spare + i))));
+      if (sum_lanes(acc) < min_replicates) break;
+    }
+    std::swap(run, spare);
+    lo = first;
+    hi = last + 1;
+    out.kept = j + 1;
+    if (hi - lo > 16 && nonzero * sparse_ratio < hi - lo) {
+      out.sparse = true;
+      break;
+    }
+  }
+  run_ref = run;
+  spare_ref = spare;
+  lo_ref = lo;
+  hi_ref = hi;
+  return out;
+}
+
+SL_AVX512_KERNEL std::int64_t count_and_avx512(const std::uint64_t* a, const std::uint64_t* b, std::size_t n) {
+  __m512i acc = _mm512_setzero_si512();
+  for (std::size_t i = 0; i < n; i += 8) {
+    acc = _mm512_add_epi64(acc, _mm512_popcnt_epi64(_mm512_maskz_and_epi64(lanes_left(n - i), _mm512_loadu_si512(a + i),
+                                                                            _mm512_loadu_si512(b + i))));
+  }
+  return sum_lanes(acc);
+}
+
+bool has_avx512_popcount() {
+  __builtin_cpu_init();
+  return __builtin_cpu_supports("avx512f") && __builtin_cpu_supports("avx512vpopcntdq");
+}
+#endif
+
+const Kernels kPortable{"portable", 64, narrow_portable, count_and_portable};
+#ifdef SL_HAVE_AVX512_PLANES
+const Kernels kAvx512{"avx512", 512, narrow_avx512, count_and_avx512};
+#endif
+
+}  // namespace
+
+const Kernels& portable() { return kPortable; }
+
+const Kernels& best() {
+  static const Kernels& chosen = [] () -> const Kernels& {
+    const char* asked = std::getenv("STRATALOOM_KERNELS");
+    if (asked != nullptr && std::string_view(asked) == "portable") return kPortable;
+#ifdef SL_HAVE_AVX512_PLANES
+    if (has_avx512_popcount()) return kAvx512;
+#endif
+    return kPortable;
+  }();
+  return chosen;
+}
+
+}  // namespace sl::planes
