@@ -22,6 +22,32 @@ inline constexpr Index kMaxCells = Index{1} << 40;
 // Deepest multiple-grid level: level g visits every 2**g-th cell.
 inline constexpr int kMaxLevel = 20;
 
+// Division by a fixed divisor as a multiply and a shift (Lemire, Kaser & Kurz 2019, "Faster
+// remainder by direct computation: applications to compilers and software libraries", Software:
+// Practice and Experience 49(6)): with m = ceil(2**64 / d), n / d = (m * n) >> 64 exactly for all
+// n, d below 2**32. Larger dividends fall back to the division instruction.
+class Divider {
+ public:
+  Divider() = default;
+  explicit Divider(Index d) : d_(d) {
+    if (d > 1 && d < (Index{1} << 32)) m_ = ~std::uint64_t{0} / static_cast<std::uint64_t>(d) + 1;
+  }
+  Index divisor() const noexcept { return d_; }
+  // n / d for n >= 0.
+  Index divide(Index n) const noexcept {
+#if defined(__SIZEOF_INT128__)
+    __extension__ using Wide = unsigned __int128;
+    if (m_ != 0 && static_cast<std::uint64_t>(n) < (std::uint64_t{1} << 32))
+      return static_cast<Index>((static_cast<Wide>(m_) * static_cast<std::uint64_t>(n)) >> 64);
+#endif
+    return d_ == 1 ? n : n / d_;
+  }
+
+ private:
+  Index d_ = 1;
+  std::uint64_t m_ = 0;  // 0: use the division instruction
+};
+
 class Grid {
  public:
   Grid() = default;
@@ -40,6 +66,8 @@ class Grid {
     }
     require(cells <= static_cast<double>(kMaxCells), "shape",
             "gives more than 2**40 cells; split the model into smaller grids.");
+    per_row_ = Divider(shape[2]);
+    per_layer_ = Divider(shape[1]);
   }
 
   const Ijk& shape() const noexcept { return shape_; }
@@ -54,9 +82,9 @@ class Grid {
   Index index(const Ijk& c) const noexcept { return (c[0] * shape_[1] + c[1]) * shape_[2] + c[2]; }
   // Cell of a flat index in [0, size()).
   Ijk cell(Index i) const noexcept {
-    const Index ix = i % shape_[2];
-    const Index rest = i / shape_[2];
-    return {rest / shape_[1], rest % shape_[1], ix};
+    const Index rest = per_row_.divide(i);
+    const Index z = per_layer_.divide(rest);
+    return {z, rest - z * shape_[1], i - rest * shape_[2]};
   }
   Xyz centre(const Ijk& c) const noexcept {
     return {origin_[0] + (static_cast<double>(c[0]) + 0.5) * spacing_[0],
@@ -94,6 +122,7 @@ class Grid {
   Ijk shape_{1, 1, 1};
   Xyz spacing_{1, 1, 1};
   Xyz origin_{0, 0, 0};
+  Divider per_row_, per_layer_;  // by shape_[2] and shape_[1], for cell()
 };
 
 // Checks a multiple-grid level number against the range [0, kMaxLevel].

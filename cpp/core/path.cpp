@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <array>
+#include <bit>
 
 #include "core/error.hpp"
 #include "core/random.hpp"
@@ -31,14 +32,24 @@ void shuffle_path(std::vector<Index>& cells, std::uint64_t seed, int level) {
     std::uint64_t key;
     Index cell;
   };
-  std::vector<Keyed> keyed(cells.size());
-  for (std::size_t i = 0; i < cells.size(); ++i)
-    keyed[i] = {random_bits(seed, static_cast<std::uint32_t>(level), static_cast<std::uint64_t>(cells[i]), Stream::path),
-                cells[i]};
-  std::sort(keyed.begin(), keyed.end(), [](const Keyed& a, const Keyed& b) {
-    return a.key != b.key ? a.key < b.key : a.cell < b.cell;
-  });
-  for (std::size_t i = 0; i < cells.size(); ++i) cells[i] = keyed[i].cell;
+  auto before = [](const Keyed& a, const Keyed& b) { return a.key != b.key ? a.key < b.key : a.cell < b.cell; };
+  const std::size_t n = cells.size();
+  // The keys are uniform: one counting pass on their top bits spreads the cells over about n / 4
+  // buckets in order, then each (small) bucket is sorted. Same order as one comparison sort.
+  const int bits = std::clamp(static_cast<int>(std::bit_width(n)) - 2, 1, 16);
+  std::vector<std::uint32_t> start((std::size_t{1} << bits) + 1, 0);
+  std::vector<Keyed> keyed(n), sorted(n);
+  for (std::size_t i = 0; i < n; ++i) {
+    const std::uint64_t key = random_bits(seed, static_cast<std::uint32_t>(level), static_cast<std::uint64_t>(cells[i]), Stream::path);
+    keyed[i] = {key, cells[i]};
+    ++start[(key >> (64 - bits)) + 1];
+  }
+  for (std::size_t b = 1; b < start.size(); ++b) start[b] += start[b - 1];
+  std::vector<std::uint32_t> fill(start.begin(), start.end() - 1);
+  for (const Keyed& k : keyed) sorted[fill[k.key >> (64 - bits)]++] = k;
+  for (std::size_t b = 0; b + 1 < start.size(); ++b)
+    std::sort(sorted.begin() + start[b], sorted.begin() + start[b + 1], before);
+  for (std::size_t i = 0; i < n; ++i) cells[i] = sorted[i].cell;
 }
 
 std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, const Offset& reach,
@@ -67,10 +78,11 @@ std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, con
   std::vector<std::int64_t> blocked(static_cast<std::size_t>(padded[0] * padded[1] * padded[2]), -1);
   // The (padded) bucket of every path node, computed once: each node may be looked at many times.
   std::vector<std::uint32_t> bucket_index(path.size());
+  const Divider by_bucket[3] = {Divider(bucket[0]), Divider(bucket[1]), Divider(bucket[2])};
   for (std::size_t i = 0; i < path.size(); ++i) {
     const Ijk c = grid.cell(path[i]);
     Index f = 0;
-    for (int a = 0; a < 3; ++a) f = f * padded[a] + (c[a] >> level) / bucket[a] + (padded[a] > 1 ? 1 : 0);
+    for (int a = 0; a < 3; ++a) f = f * padded[a] + by_bucket[a].divide(c[a] >> level) + (padded[a] > 1 ? 1 : 0);
     bucket_index[i] = static_cast<std::uint32_t>(f);
   }
   const std::int64_t window = 4 * max_batch;  // candidates looked at per batch

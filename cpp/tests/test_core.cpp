@@ -1,4 +1,5 @@
 // Unit tests of cpp/core: grid index math, templates, random draws, paths, batches, the pool.
+#include <random>
 #include <algorithm>
 #include <atomic>
 #include <set>
@@ -120,4 +121,23 @@ SL_TEST(pool_rethrows_worker_errors) {
   SL_CHECK_THROWS(run_batches(2, starts, [&](int, std::int64_t p) { if (p == 3) throw ParameterError("x", "bad"); },
                               [](std::size_t) {}, ctl, Poll{}),
                   ParameterError);
+}
+
+SL_TEST(divider_matches_division) {
+  // Lemire, Kaser & Kurz 2019: exact below 2**32; above, the division instruction is used.
+  std::mt19937_64 gen(5);
+  const Index divisors[] = {1, 2, 3, 7, 10, 143, 640, 65535, 65536, 65537, 2147483647, 4294967295LL, 4294967296LL,
+                            8589934593LL};
+  for (Index d : divisors) {
+    const Divider div(d);
+    const Index edges[] = {0, 1, d - 1, d, d + 1, 4294967295LL, 4294967296LL, 4294967297LL, Index{1} << 40};
+    for (Index n : edges)
+      if (n >= 0) SL_CHECK(div.divide(n) == n / d);
+    for (int i = 0; i < 20000; ++i) {
+      const Index n = static_cast<Index>(gen() >> (i % 2 ? 32 : 23));
+      SL_CHECK(div.divide(n) == n / d);
+    }
+  }
+  const Grid g({7, 13, 29});
+  for (Index i = 0; i < g.size(); ++i) SL_CHECK(g.index(g.cell(i)) == i);
 }
