@@ -28,7 +28,9 @@ def _folder_bytes(folder: Path) -> dict[str, bytes]:
 
 
 def _study(tmp_path: Path, n: int = 8) -> Path:
-    p = write_small_study(tmp_path / "s", shape=(6, 40, 40), n=n)
+    # Large enough that simulating takes about half of the run after the store exists (0.4 of
+    # 0.9 s here), so that random kills land while realizations are being written.
+    p = write_small_study(tmp_path / "s", shape=(10, 80, 80), n=n)
     text = p.read_text().replace("summary = false", "summary = true")  # the summary is written too
     p.write_text(text)
     return p

@@ -147,6 +147,16 @@ SL_TEST(tau_merge_worked_values) {
   SL_CHECK(out[0] == 1.0 && out[1] == 0.0);
 }
 
+SL_TEST(empty_event_gives_the_proportions) {
+  const auto ti = random_image({1, 9, 9}, 3, 4);
+  const PatternTree tree(ti, Template::box({0, 1, 1}), 1, std::int64_t{1} << 30);
+  QueryScratch a, b;
+  const auto x = tree.query(0, nullptr, nullptr, 0, 1, false, a);
+  const auto y = tree.scan(0, nullptr, nullptr, 0, 1, b);
+  SL_CHECK(x.kept == 0 && y.kept == 0 && x.replicates == tree.centre_count() && y.replicates == tree.centre_count());
+  SL_CHECK(a.best == tree.category_counts() && b.best == tree.category_counts());
+}
+
 SL_TEST(bit_plane_kernels_agree) {
   // The AVX-512 kernels (where the processor has them) and the plain loops give the same sets.
   const planes::Kernels& fast = planes::best();
@@ -169,13 +179,16 @@ SL_TEST(bit_plane_kernels_agree) {
     all[hi - 1] |= std::uint64_t{1} << 63;
     const std::int64_t min_rep = 1 + static_cast<std::int64_t>(gen() % 4);
     const std::size_t ratio = gen() % 2 ? 16 : 40;
+    // The start set is only read: the kernels write to the two buffers.
+    const std::vector<std::uint64_t> start(all.begin(), all.begin() + static_cast<std::ptrdiff_t>(words + planes::kPadWords));
     std::vector<std::uint64_t> a(words + planes::kPadWords), a2(a), b(a), b2(a);
-    std::copy(all.begin(), all.begin() + static_cast<std::ptrdiff_t>(words), a.begin());
-    std::copy(all.begin(), all.begin() + static_cast<std::ptrdiff_t>(words), b.begin());
-    std::uint64_t *ra = a.data(), *sa = a2.data(), *rb = b.data(), *sb = b2.data();
     std::size_t lo_a = lo, hi_a = hi, lo_b = lo, hi_b = hi;
-    const auto x = fast.narrow(ra, sa, plane.data(), m, lo_a, hi_a, min_rep, ratio);
-    const auto y = plain.narrow(rb, sb, plane.data(), m, lo_b, hi_b, min_rep, ratio);
+    const auto x = fast.narrow(start.data(), a.data(), a2.data(), plane.data(), m, lo_a, hi_a, min_rep, ratio);
+    const auto y = plain.narrow(start.data(), b.data(), b2.data(), plane.data(), m, lo_b, hi_b, min_rep, ratio);
+    SL_CHECK(std::equal(start.begin(), start.begin() + static_cast<std::ptrdiff_t>(words), all.begin()));
+    const std::uint64_t* ra = x.set;
+    const std::uint64_t* rb = y.set;
+    SL_CHECK((x.kept == 0) == (ra == start.data()));
     SL_CHECK(x.kept == y.kept && x.sparse == y.sparse && lo_a == lo_b && hi_a == hi_b);
     SL_CHECK(std::equal(ra + lo_a, ra + hi_a, rb + lo_b));
     SL_CHECK(ra[lo_a] != 0 && ra[hi_a - 1] != 0);

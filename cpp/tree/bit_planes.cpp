@@ -22,28 +22,32 @@ namespace {
 #define SL_PORTABLE_KERNEL
 #endif
 
-SL_PORTABLE_KERNEL Narrowed narrow_portable(std::uint64_t*& run, std::uint64_t*& spare, const std::uint64_t* const* plane,
-                                            std::size_t m, std::size_t& lo, std::size_t& hi,
-                                            std::int64_t min_replicates, std::size_t sparse_ratio) {
+SL_PORTABLE_KERNEL Narrowed narrow_portable(const std::uint64_t* start, std::uint64_t* a_buf, std::uint64_t* b_buf,
+                                            const std::uint64_t* const* plane, std::size_t m, std::size_t& lo,
+                                            std::size_t& hi, std::int64_t min_replicates, std::size_t sparse_ratio) {
   Narrowed out;
+  const std::uint64_t* cur = start;
+  std::uint64_t* dst = a_buf;  // never `cur`
+  std::uint64_t* other = b_buf;
   for (std::size_t j = 0; j < m; ++j) {
     const std::uint64_t* p = plane[j];
     std::size_t nonzero = 0;
     for (std::size_t i = lo; i < hi; ++i) {
-      const std::uint64_t a = run[i] & p[i];
-      spare[i] = a;
+      const std::uint64_t a = cur[i] & p[i];
+      dst[i] = a;
       nonzero += a != 0;
     }
     if (nonzero == 0) break;
     std::size_t first = lo, last = hi - 1;
-    while (spare[first] == 0) ++first;
-    while (spare[last] == 0) --last;
+    while (dst[first] == 0) ++first;
+    while (dst[last] == 0) --last;
     if (min_replicates > 1) {
       std::int64_t total = 0;
-      for (std::size_t i = first; i <= last; ++i) total += std::popcount(spare[i]);
+      for (std::size_t i = first; i <= last; ++i) total += std::popcount(dst[i]);
       if (total < min_replicates) break;
     }
-    std::swap(run, spare);
+    cur = dst;
+    std::swap(dst, other);
     lo = first;
     hi = last + 1;
     out.kept = j + 1;
@@ -52,6 +56,7 @@ SL_PORTABLE_KERNEL Narrowed narrow_portable(std::uint64_t*& run, std::uint64_t*&
       break;
     }
   }
+  out.set = cur;
   return out;
 }
 
@@ -80,12 +85,13 @@ SL_AVX512_KERNEL inline unsigned words_set(const std::uint64_t* words, std::size
   return static_cast<unsigned>(_mm512_mask_test_epi64_mask(lanes_left(end - at), a, a));
 }
 
-SL_AVX512_KERNEL Narrowed narrow_avx512(std::uint64_t*& run_ref, std::uint64_t*& spare_ref, const std::uint64_t* const* plane,
-                                        std::size_t m, std::size_t& lo_ref, std::size_t& hi_ref, std::int64_t min_replicates,
-                                        std::size_t sparse_ratio) {
+SL_AVX512_KERNEL Narrowed narrow_avx512(const std::uint64_t* start, std::uint64_t* a_buf, std::uint64_t* b_buf,
+                                        const std::uint64_t* const* plane, std::size_t m, std::size_t& lo_ref,
+                                        std::size_t& hi_ref, std::int64_t min_replicates, std::size_t sparse_ratio) {
   // Local copies: stores through the word pointers could otherwise alias these.
-  std::uint64_t* run = run_ref;
-  std::uint64_t* spare = spare_ref;
+  const std::uint64_t* cur = start;
+  std::uint64_t* dst = a_buf;    // where the next pass writes: never `cur`
+  std::uint64_t* other = b_buf;
   std::size_t lo = lo_ref, hi = hi_ref;
   Narrowed out;
   for (std::size_t j = 0; j < m; ++j) {
@@ -93,8 +99,9 @@ SL_AVX512_KERNEL Narrowed narrow_avx512(std::uint64_t*& run_ref, std::uint64_t*&
       // Two vectors or less: keep them in registers for the remaining planes (no stores, no
       // trimming between planes; a pass costs a few instructions).
       const __mmask8 lanes0 = lanes_left(hi - lo), lanes1 = hi - lo > 8 ? lanes_left(hi - lo - 8) : 0;
-      __m512i a0 = _mm512_maskz_mov_epi64(lanes0, _mm512_loadu_si512(run + lo));
-      __m512i a1 = _mm512_maskz_mov_epi64(lanes1, _mm512_loadu_si512(run + lo + 8));
+      __m512i a0 = _mm512_maskz_mov_epi64(lanes0, _mm512_loadu_si512(cur + lo));
+      __m512i a1 = _mm512_maskz_mov_epi64(lanes1, _mm512_loadu_si512(cur + lo + 8));
+      const std::size_t kept_before = out.kept;
       for (; j < m; ++j) {
         const __m512i b0 = _mm512_and_si512(a0, _mm512_loadu_si512(plane[j] + lo));
         const __m512i b1 = _mm512_and_si512(a1, _mm512_loadu_si512(plane[j] + lo + 8));
@@ -107,13 +114,13 @@ SL_AVX512_KERNEL Narrowed narrow_avx512(std::uint64_t*& run_ref, std::uint64_t*&
         a1 = b1;
         out.kept = j + 1;
       }
-      _mm512_storeu_si512(run + lo, a0);
-      _mm512_storeu_si512(run + lo + 8, a1);
+      if (out.kept == kept_before) break;  // nothing added: the set stays where it is
+      _mm512_storeu_si512(dst + lo, a0);
+      _mm512_storeu_si512(dst + lo + 8, a1);
+      cur = dst;
       const unsigned set = _mm512_test_epi64_mask(a0, a0) | static_cast<unsigned>(_mm512_test_epi64_mask(a1, a1)) << 8;
-      if (set != 0) {  // always, as run[lo, hi) is never empty here
-        hi = lo + 16 - static_cast<std::size_t>(std::countl_zero(set << 16));
-        lo += static_cast<std::size_t>(std::countr_zero(set));
-      }
+      hi = lo + 16 - static_cast<std::size_t>(std::countl_zero(set << 16));  // set != 0: a plane was kept
+      lo += static_cast<std::size_t>(std::countr_zero(set));
       break;
     }
     const std::uint64_t* p = plane[j];
@@ -124,23 +131,24 @@ SL_AVX512_KERNEL Narrowed narrow_avx512(std::uint64_t*& run_ref, std::uint64_t*&
     for (std::size_t i = lo; i < hi; i += 8) {
       // Whole vectors (the arrays have room past hi): masked stores would stall the loads of the
       // next pass, which read them back. Lanes past hi are left out of the counts.
-      const __m512i a = _mm512_and_si512(_mm512_loadu_si512(run + i), _mm512_loadu_si512(p + i));
-      _mm512_storeu_si512(spare + i, a);
+      const __m512i a = _mm512_and_si512(_mm512_loadu_si512(cur + i), _mm512_loadu_si512(p + i));
+      _mm512_storeu_si512(dst + i, a);
       const unsigned set = _mm512_mask_test_epi64_mask(lanes_left(hi - i), a, a);
       nonzero += static_cast<std::size_t>(std::popcount(set));
       f = (f == hi && set != 0) ? i : f;
       l = set != 0 ? i : l;
     }
     if (nonzero == 0) break;
-    const std::size_t first = f + static_cast<std::size_t>(std::countr_zero(words_set(spare, f, hi)));
-    const std::size_t last = l + 31 - static_cast<std::size_t>(std::countl_zero(words_set(spare, l, hi)));
+    const std::size_t first = f + static_cast<std::size_t>(std::countr_zero(words_set(dst, f, hi)));
+    const std::size_t last = l + 31 - static_cast<std::size_t>(std::countl_zero(words_set(dst, l, hi)));
     if (min_replicates > 1) {
       __m512i acc = _mm512_setzero_si512();
       for (std::size_t i = first; i <= last; i += 8)
-        acc = _mm512_add_epi64(acc, _mm512_popcnt_epi64(_mm512_maskz_mov_epi64(lanes_left(last + 1 - i), _mm512_loadu_si512(spare + i))));
+        acc = _mm512_add_epi64(acc, _mm512_popcnt_epi64(_mm512_maskz_mov_epi64(lanes_left(last + 1 - i), _mm512_loadu_si512(dst + i))));
       if (sum_lanes(acc) < min_replicates) break;
     }
-    std::swap(run, spare);
+    cur = dst;
+    std::swap(dst, other);
     lo = first;
     hi = last + 1;
     out.kept = j + 1;
@@ -149,8 +157,7 @@ SL_AVX512_KERNEL Narrowed narrow_avx512(std::uint64_t*& run_ref, std::uint64_t*&
       break;
     }
   }
-  run_ref = run;
-  spare_ref = spare;
+  out.set = cur;
   lo_ref = lo;
   hi_ref = hi;
   return out;

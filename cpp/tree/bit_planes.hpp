@@ -11,8 +11,9 @@ namespace sl::planes {
 
 // A candidate set narrowed by informed nodes (see Kernels::narrow).
 struct Narrowed {
-  std::size_t kept = 0;  // planes ANDed in before the set would have too few centres
-  bool sparse = false;   // stopped early: the set holds few non-empty words over a wide span
+  std::size_t kept = 0;                  // planes ANDed in before the set would have too few centres
+  bool sparse = false;                   // stopped early: few non-empty words over a wide span
+  const std::uint64_t* set = nullptr;    // the words of the set kept (the start set or a buffer)
 };
 
 // Words every array handed to the kernels must have past the last one it is read at: the
@@ -24,15 +25,17 @@ struct Kernels {
   // Centres the narrowing checks per plane in about the time a tree walk takes one step, measured
   // on 2-D and 3-D queries: the query's cost model (PatternTree::query) uses it.
   int centres_per_step;
-  // Node dropping on bit planes. `run` holds the candidate set in its words [lo, hi) (a word that
-  // is zero there may be anything elsewhere); `spare` is as long as `run`. ANDs the set with
-  // plane[0], plane[1], ... (whole planes, read at [lo, hi)) while the result keeps at least
-  // `min_replicates` centres (and at least one), narrowing [lo, hi) to the words still non-zero.
-  // Stops after a plane (counted in kept) once the span is over 16 words and fewer than one word
-  // in `sparse_ratio` of it is non-zero. On return `run` and `spare` may have traded places;
-  // run[lo, hi) is the set kept, with its first and last word non-zero.
-  Narrowed (*narrow)(std::uint64_t*& run, std::uint64_t*& spare, const std::uint64_t* const* plane, std::size_t m,
-                     std::size_t& lo, std::size_t& hi, std::int64_t min_replicates, std::size_t sparse_ratio);
+  // Node dropping on bit planes. `start` holds the candidate set in its words [lo, hi) (a word
+  // that is zero there may be anything elsewhere); it is only read. ANDs the set with plane[0],
+  // plane[1], ... (whole planes, read at [lo, hi)) while the result keeps at least
+  // `min_replicates` centres (and at least one), narrowing [lo, hi) to the words still non-zero;
+  // the results go to the buffers `a` and `b` in turn (each as long as a plane). Stops after a
+  // plane (counted in kept) once the span is over 16 words and fewer than one word in
+  // `sparse_ratio` of it is non-zero. The set kept is `set`[lo, hi), its first and last word
+  // non-zero (`start` itself when no plane was kept).
+  Narrowed (*narrow)(const std::uint64_t* start, std::uint64_t* a, std::uint64_t* b, const std::uint64_t* const* plane,
+                     std::size_t m, std::size_t& lo, std::size_t& hi, std::int64_t min_replicates,
+                     std::size_t sparse_ratio);
   // Bits set in a[i] & b[i] over i < n.
   std::int64_t (*count_and)(const std::uint64_t* a, const std::uint64_t* b, std::size_t n);
 };

@@ -83,8 +83,10 @@ namespace {
 // Bytes held by one level's arrays: what memory_bytes reports and the budget counts.
 std::int64_t level_bytes(const PatternTree::Level& L) {
   return static_cast<std::int64_t>(
-      (L.first_child.size() + L.first_centre.size() + L.counts.size() + L.depth_start.size() + L.order.size()) *
+      (L.first_child.size() + L.first_centre.size() + L.counts.size() + L.depth_start.size() + L.order.size() +
+       L.plane_first.size() + L.plane_end.size()) *
           sizeof(std::uint32_t) +
+      L.plane_count.size() * sizeof(std::int64_t) +
       (L.sorted.size() + L.delta.size()) * sizeof(std::int64_t) + (L.planes.size() + L.category.size()) * sizeof(std::uint64_t));
 }
 
@@ -360,6 +362,18 @@ PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t>
     }
     L.category[padded[c] * words + w] |= bit;
   }
+  L.plane_first.assign(D * K, 0);
+  L.plane_end.assign(D * K, 0);
+  L.plane_count.assign(D * K, 0);
+  for (std::size_t p = 0; p < D * K; ++p) {
+    const std::uint64_t* plane = L.planes.data() + p * words;
+    for (std::size_t w = 0; w < words; ++w) {
+      if (plane[w] == 0) continue;
+      if (L.plane_count[p] == 0) L.plane_first[p] = static_cast<std::uint32_t>(w);
+      L.plane_end[p] = static_cast<std::uint32_t>(w + 1);
+      L.plane_count[p] += std::popcount(plane[w]);
+    }
+  }
   L.first_centre.shrink_to_fit();
   L.counts.shrink_to_fit();
   L.first_child.shrink_to_fit();
@@ -481,54 +495,72 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
   const std::uint64_t* category = L.category.data();
   const planes::Kernels& kern = planes::best();
   ans.scanned = true;
-  // The frontier's centres as one dense bit set over the words [lo, hi) they span.
+  if (k >= m) return ans;  // no informed node left: the answer stands
   if (sc.run.size() < words + planes::kPadWords) {
     sc.run.resize(words + planes::kPadWords);
     sc.next_run.resize(words + planes::kPadWords);
+    sc.third_run.resize(words + planes::kPadWords);
   }
-  std::uint64_t* run = sc.run.data();
-  std::uint64_t* next = sc.next_run.data();
+  sc.plane_at.resize(static_cast<std::size_t>(m));
+  for (int j = k; j < m; ++j)
+    sc.plane_at[static_cast<std::size_t>(j)] = planes + (static_cast<std::size_t>(index[j]) * K + value[j]) * words;
+  // The set to narrow: all centres when no informed node has been taken yet (the walk only
+  // marginalised; then the first informed node's plane is the set after it, its extent and count
+  // known), or the frontier's centres as a dense bit set over the words [lo, hi) they span.
+  const std::uint64_t* start = nullptr;
   std::size_t lo = words, hi = 0;
-  for (std::uint32_t j : sc.frontier) {
-    const std::uint32_t b = L.first_centre[j];
-    const std::uint32_t e = j + 1 < depth_end ? L.first_centre[j + 1] : N;
-    if (b >= e) continue;
-    if (lo == words) lo = b / 64;
-    hi = (e - 1) / 64 + 1;
-  }
-  if (lo >= hi) return ans;
-  std::fill(run + lo, run + hi, 0);
-  for (std::uint32_t j : sc.frontier) {
-    const std::uint32_t b = L.first_centre[j];
-    const std::uint32_t e = j + 1 < depth_end ? L.first_centre[j + 1] : N;
-    if (b >= e) continue;
-    ans.visited += e - b;
-    const std::uint32_t wb = b / 64, we = (e - 1) / 64;
-    const std::uint64_t head = ~std::uint64_t{0} << (b % 64);
-    const std::uint64_t tail = ~std::uint64_t{0} >> (63 - (e - 1) % 64);
-    if (wb == we) {
-      run[wb] |= head & tail;
-    } else {
-      run[wb] |= head;
-      std::fill(run + wb + 1, run + we, ~std::uint64_t{0});
-      run[we] |= tail;
+  std::size_t n = static_cast<std::size_t>(k);
+  if (k == 0) {
+    const std::size_t p = static_cast<std::size_t>(index[k]) * K + value[k];
+    if (L.plane_count[p] < std::max<std::int64_t>(min_replicates, 1)) return ans;
+    start = sc.plane_at[n];
+    lo = L.plane_first[p];
+    hi = L.plane_end[p];
+    ans.visited += static_cast<std::int64_t>(N);
+    ans.kept = k + 1;
+    ++n;
+  } else {
+    for (std::uint32_t j : sc.frontier) {
+      const std::uint32_t b = L.first_centre[j];
+      const std::uint32_t e = j + 1 < depth_end ? L.first_centre[j + 1] : N;
+      if (b >= e) continue;
+      if (lo == words) lo = b / 64;
+      hi = (e - 1) / 64 + 1;
     }
+    if (lo >= hi) return ans;
+    std::uint64_t* run = sc.third_run.data();
+    std::fill(run + lo, run + hi, 0);
+    for (std::uint32_t j : sc.frontier) {
+      const std::uint32_t b = L.first_centre[j];
+      const std::uint32_t e = j + 1 < depth_end ? L.first_centre[j + 1] : N;
+      if (b >= e) continue;
+      ans.visited += e - b;
+      const std::uint32_t wb = b / 64, we = (e - 1) / 64;
+      const std::uint64_t head = ~std::uint64_t{0} << (b % 64);
+      const std::uint64_t tail = ~std::uint64_t{0} >> (63 - (e - 1) % 64);
+      if (wb == we) {
+        run[wb] |= head & tail;
+      } else {
+        run[wb] |= head;
+        std::fill(run + wb + 1, run + we, ~std::uint64_t{0});
+        run[we] |= tail;
+      }
+    }
+    start = run;
   }
   // Add the informed nodes one at a time, narrowing [lo, hi) to the words still holding a match,
   // and stop when too few replicates remain (node dropping). Only totals are needed for that, so
   // the categories are counted once, for the set kept. (Stopping once one category holds every
   // match would save passes, but testing for it costs about as much as a pass.) Sets that keep
   // few words over a wide span continue as a list of their non-empty words.
-  sc.plane_at.resize(static_cast<std::size_t>(m));
-  for (int j = k; j < m; ++j)
-    sc.plane_at[static_cast<std::size_t>(j)] = planes + (static_cast<std::size_t>(index[j]) * K + value[j]) * words;
   const std::size_t span = hi - lo;
-  const planes::Narrowed nw = kern.narrow(run, next, sc.plane_at.data() + k, static_cast<std::size_t>(m - k), lo, hi,
-                                          min_replicates, 16);
+  const planes::Narrowed nw = kern.narrow(start, sc.run.data(), sc.next_run.data(), sc.plane_at.data() + n,
+                                          static_cast<std::size_t>(m) - n, lo, hi, min_replicates, 16);
   ans.visited += 64 * static_cast<std::int64_t>(span);  // the first pass; later ones cover less
-  std::size_t n = static_cast<std::size_t>(k) + nw.kept;
-  if (nw.kept > 0) ans.kept = static_cast<int>(n);
-  bool counted = nw.kept == 0;  // sc.best holds the counts of the set kept
+  n += nw.kept;
+  ans.kept = static_cast<int>(n);
+  const std::uint64_t* run = nw.set;
+  bool counted = n == static_cast<std::size_t>(k);  // sc.best holds the counts of the set kept
   const bool sparse = nw.sparse;
   if (sparse) {
     sc.word_index.clear();

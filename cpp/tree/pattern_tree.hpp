@@ -62,7 +62,7 @@ struct QueryScratch {
   std::vector<std::int64_t> counts, best;            // K each
   std::vector<std::uint32_t> word_index, next_index;  // candidate words of the bit planes
   std::vector<std::uint64_t> word_alive, next_alive;  // their centres still matching
-  std::vector<std::uint64_t> run, next_run;           // the same as dense bit sets, one word per 64 centres
+  std::vector<std::uint64_t> run, next_run, third_run;  // dense bit sets, one word per 64 centres
   std::vector<const std::uint64_t*> plane_at;         // the bit plane of each informed node
 };
 
@@ -137,6 +137,9 @@ class PatternTree {
     // code q".
     std::vector<std::uint64_t> planes, category;
     std::size_t words = 0;
+    // Per plane: its first and past-the-last non-zero word, and its centres.
+    std::vector<std::uint32_t> plane_first, plane_end;
+    std::vector<std::int64_t> plane_count;
   };
 
  private:
