@@ -208,3 +208,34 @@ def test_results_do_not_depend_on_which_ordered_trees_fit_in_memory():
     for threads in (1, 2):
         np.testing.assert_array_equal(tight.simulate((60, 60), seed=5, threads=threads), want)
     assert tight.memory_bytes < roomy.memory_bytes  # some ordered trees did not fit
+
+
+def test_results_do_not_depend_on_the_processor_kernels(tmp_path):
+    # The bit-plane kernels are chosen once per process (AVX-512 where the processor has it, plain
+    # loops otherwise; STRATALOOM_KERNELS=portable forces the plain ones): realizations and
+    # conditional counts must be the same either way, for one and several levels.
+    import os
+    import subprocess
+    import sys
+
+    script = tmp_path / "run.py"
+    script.write_text(
+        "import sys, numpy as np, strataloom as sl\n"
+        "rng = np.random.default_rng(3)\n"
+        "ti = (rng.random((1, 70, 70)) < 0.35).astype(np.int8)\n"
+        "ti[0, 20:40, :] = 2\n"
+        "tpl = sl.Template.ellipsoid((0, 3, 3), max_nodes=24)\n"
+        "out = {}\n"
+        "for levels in (1, 3):\n"
+        "    for mr in (1, 3):\n"
+        "        t = sl.PatternTree(ti, tpl, levels=levels, min_replicates=mr)\n"
+        "        out[f'{levels}-{mr}'] = t.simulate((50, 60), seed=levels + mr, threads=2)\n"
+        "np.savez(sys.argv[1], **out)\n")
+    runs = []
+    for kernels in ("", "portable"):
+        target = tmp_path / f"out-{kernels or 'best'}.npz"
+        env = dict(os.environ, STRATALOOM_KERNELS=kernels)
+        subprocess.run([sys.executable, str(script), str(target)], check=True, env=env)
+        runs.append(np.load(target))
+    for key in runs[0].files:
+        np.testing.assert_array_equal(runs[0][key], runs[1][key], err_msg=key)

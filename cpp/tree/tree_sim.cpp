@@ -198,6 +198,7 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
     for (Index cell : cells) stage_cells[staged ? static_cast<std::size_t>(parity_of_cell(cell)) : 0].push_back(cell);
     std::vector<Index> path;
     std::vector<std::int64_t> starts{0};
+    std::fill(stage_query.begin(), stage_query.end(), StageQuery{});
     for (int p : kStageOrder) {
       std::vector<Index>& part = stage_cells[static_cast<std::size_t>(p)];
       if (part.empty()) continue;
@@ -208,7 +209,6 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       const auto offset = static_cast<std::int64_t>(path.size());
       for (std::size_t b = 1; b < part_starts.size(); ++b) starts.push_back(offset + part_starts[b]);
       path.insert(path.end(), part.begin(), part.end());
-      for (std::size_t t = 0; t < trees.size(); ++t) stage_query[t * 8 + static_cast<std::size_t>(p)] = StageQuery{};
       if (!staged) continue;
       // The class's cells query trees that take the nodes informed at its stage's start first.
       for (std::size_t t = 0; t < trees.size(); ++t) {
@@ -223,7 +223,7 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       }
     }
     // Build (or find) the ordered trees of this level, one per worker at a time.
-    {
+    if (std::any_of(stage_query.begin(), stage_query.end(), [](const StageQuery& q) { return !q.order.empty(); })) {
       std::vector<std::size_t> wanted;
       for (std::size_t i = 0; i < stage_query.size(); ++i)
         if (!stage_query[i].order.empty()) wanted.push_back(i);
