@@ -67,3 +67,17 @@ class TreeFirstRealization:
 
     def peakmem_first_simulate(self):
         self.tree.simulate((16, 64, 64), seed=1, threads=1)
+
+
+class TreeSimulate2D:
+    """One level, 2-D: a 64 x 64 realization from a 100 x 100 TI with a 30-node template (the
+    engine side of compare.py's comparison with a NumPy scan of the TI per node)."""
+
+    def setup(self):
+        field = gaussian_filter(np.random.default_rng(0).standard_normal((100, 100)), 3.0)
+        ti = np.digitize(field, np.quantile(field, [0.6, 0.85])).astype(np.int8)
+        self.tree = sl.PatternTree(ti, sl.Template.ellipsoid((0, 4, 4), max_nodes=30), levels=1)
+        self.tree.simulate((64, 64), seed=0, threads=1)
+
+    def time_simulate(self):
+        self.tree.simulate((64, 64), seed=1, threads=1)

@@ -14,6 +14,21 @@ namespace sl::planes {
 
 namespace {
 
+// After a pass that wrote the set after plane j to `dst` (non-zero words first..last, `nonzero` of
+// them): makes it the current set and narrows [lo, hi) to it. True when the set has become sparse
+// (few non-empty words over a wide span): the caller stops there.
+inline bool keep_pass(Narrowed& out, const std::uint64_t*& cur, std::uint64_t*& dst, std::uint64_t*& other,
+                      std::size_t& lo, std::size_t& hi, std::size_t j, std::size_t first, std::size_t last,
+                      std::size_t nonzero, std::size_t sparse_ratio) {
+  cur = dst;
+  std::swap(dst, other);
+  lo = first;
+  hi = last + 1;
+  out.kept = j + 1;
+  out.sparse = hi - lo > 16 && nonzero * sparse_ratio < hi - lo;
+  return out.sparse;
+}
+
 // Plain loops: with clones for processors with popcount and with AVX2, which the compiler
 // vectorises the AND and the zero test for.
 #if defined(__x86_64__) && defined(__ELF__) && (defined(__GNUC__) || defined(__clang__)) && !defined(STRATALOOM_NO_CLONES)
@@ -46,15 +61,7 @@ SL_PORTABLE_KERNEL Narrowed narrow_portable(const std::uint64_t* start, std::uin
       for (std::size_t i = first; i <= last; ++i) total += std::popcount(dst[i]);
       if (total < min_replicates) break;
     }
-    cur = dst;
-    std::swap(dst, other);
-    lo = first;
-    hi = last + 1;
-    out.kept = j + 1;
-    if (hi - lo > 16 && nonzero * sparse_ratio < hi - lo) {
-      out.sparse = true;
-      break;
-    }
+    if (keep_pass(out, cur, dst, other, lo, hi, j, first, last, nonzero, sparse_ratio)) break;
   }
   out.set = cur;
   return out;
@@ -147,15 +154,7 @@ SL_AVX512_KERNEL Narrowed narrow_avx512(const std::uint64_t* start, std::uint64_
         acc = _mm512_add_epi64(acc, _mm512_popcnt_epi64(_mm512_maskz_mov_epi64(lanes_left(last + 1 - i), _mm512_loadu_si512(dst + i))));
       if (sum_lanes(acc) < min_replicates) break;
     }
-    cur = dst;
-    std::swap(dst, other);
-    lo = first;
-    hi = last + 1;
-    out.kept = j + 1;
-    if (hi - lo > 16 && nonzero * sparse_ratio < hi - lo) {
-      out.sparse = true;
-      break;
-    }
+    if (keep_pass(out, cur, dst, other, lo, hi, j, first, last, nonzero, sparse_ratio)) break;
   }
   out.set = cur;
   lo_ref = lo;
