@@ -32,7 +32,6 @@ class Divider {
   explicit Divider(Index d) : d_(d) {
     if (d > 1 && d < (Index{1} << 32)) m_ = ~std::uint64_t{0} / static_cast<std::uint64_t>(d) + 1;
   }
-  Index divisor() const noexcept { return d_; }
   // n / d for n >= 0.
   Index divide(Index n) const noexcept {
 #if defined(__SIZEOF_INT128__)

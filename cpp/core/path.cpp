@@ -37,7 +37,7 @@ void shuffle_path(std::vector<Index>& cells, std::uint64_t seed, int level) {
   // The keys are uniform: one counting pass on their top bits spreads the cells over about n / 4
   // buckets in order, then each (small) bucket is sorted. Same order as one comparison sort.
   const int bits = std::clamp(static_cast<int>(std::bit_width(n)) - 2, 1, 16);
-  std::vector<std::uint32_t> start((std::size_t{1} << bits) + 1, 0);
+  std::vector<std::size_t> start((std::size_t{1} << bits) + 1, 0);
   std::vector<Keyed> keyed(n), sorted(n);
   for (std::size_t i = 0; i < n; ++i) {
     const std::uint64_t key = random_bits(seed, static_cast<std::uint32_t>(level), static_cast<std::uint64_t>(cells[i]), Stream::path);
@@ -45,10 +45,11 @@ void shuffle_path(std::vector<Index>& cells, std::uint64_t seed, int level) {
     ++start[(key >> (64 - bits)) + 1];
   }
   for (std::size_t b = 1; b < start.size(); ++b) start[b] += start[b - 1];
-  std::vector<std::uint32_t> fill(start.begin(), start.end() - 1);
+  std::vector<std::size_t> fill(start.begin(), start.end() - 1);
   for (const Keyed& k : keyed) sorted[fill[k.key >> (64 - bits)]++] = k;
   for (std::size_t b = 0; b + 1 < start.size(); ++b)
-    std::sort(sorted.begin() + start[b], sorted.begin() + start[b + 1], before);
+    std::sort(sorted.begin() + static_cast<std::ptrdiff_t>(start[b]), sorted.begin() + static_cast<std::ptrdiff_t>(start[b + 1]),
+              before);
   for (std::size_t i = 0; i < n; ++i) cells[i] = sorted[i].cell;
 }
 

@@ -25,8 +25,8 @@
 //
 // Queries walk the tree depth by depth, following every child at template nodes outside the event
 // (marginalisation) and only the matching child at informed ones. When the frontier grows so wide
-// that walking on would cost more than checking its centres one by one, the remaining informed
-// nodes are checked directly on the TI for each centre of the frontier's ranges; both ways give the
+// that walking on would cost more than checking its centres, the remaining informed nodes are
+// checked on the bit planes for the frontier's centres (tree/bit_planes.hpp); both ways give the
 // same exact counts.
 #pragma once
 
