@@ -212,8 +212,9 @@ def test_results_do_not_depend_on_which_ordered_trees_fit_in_memory():
 
 def test_results_do_not_depend_on_the_processor_kernels(tmp_path):
     # The bit-plane kernels are chosen once per process (AVX-512 where the processor has it, plain
-    # loops otherwise; STRATALOOM_KERNELS=portable forces the plain ones): realizations and
-    # conditional counts must be the same either way, for one and several levels.
+    # loops otherwise; STRATALOOM_KERNELS=portable forces the plain ones): realizations, the
+    # engine's counters and conditional counts must be the same either way, for one and several
+    # levels. (`mean_visited` measures the work each kernel set did, so it may differ.)
     import os
     import subprocess
     import sys
@@ -230,6 +231,14 @@ def test_results_do_not_depend_on_the_processor_kernels(tmp_path):
         "    for mr in (1, 3):\n"
         "        t = sl.PatternTree(ti, tpl, levels=levels, min_replicates=mr)\n"
         "        out[f'{levels}-{mr}'] = t.simulate((50, 60), seed=levels + mr, threads=2)\n"
+        "        for name in ('mean_informed', 'mean_kept', 'scans'):\n"
+        "            out[f'{levels}-{mr}-{name}'] = np.asarray(t.last_stats[name])\n"
+        "        picks = np.random.default_rng(levels + mr)\n"
+        "        for q in range(40):\n"
+        "            chosen = picks.choice(len(tpl), size=int(picks.integers(0, 12)), replace=False)\n"
+        "            values = picks.integers(0, 3, size=len(chosen))\n"
+        "            probs, rep, kept = t.conditional(tpl.offsets[chosen], values)\n"
+        "            out[f'{levels}-{mr}-q{q}'] = np.concatenate([probs, [rep, kept]])\n"
         "np.savez(sys.argv[1], **out)\n")
     runs = []
     for kernels in ("", "portable"):

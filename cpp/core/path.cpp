@@ -34,19 +34,22 @@ void shuffle_path(std::vector<Index>& cells, std::uint64_t seed, int level) {
   };
   auto before = [](const Keyed& a, const Keyed& b) { return a.key != b.key ? a.key < b.key : a.cell < b.cell; };
   const std::size_t n = cells.size();
+  auto key_of = [&](Index cell) {
+    return random_bits(seed, static_cast<std::uint32_t>(level), static_cast<std::uint64_t>(cell), Stream::path);
+  };
   // The keys are uniform: one counting pass on their top bits spreads the cells over about n / 4
-  // buckets in order, then each (small) bucket is sorted. Same order as one comparison sort.
+  // buckets in order, then each (small) bucket is sorted. Same order as one comparison sort. The
+  // keys are drawn twice (counting, then placing) rather than held twice.
   const int bits = std::clamp(static_cast<int>(std::bit_width(n)) - 2, 1, 16);
   std::vector<std::size_t> start((std::size_t{1} << bits) + 1, 0);
-  std::vector<Keyed> keyed(n), sorted(n);
-  for (std::size_t i = 0; i < n; ++i) {
-    const std::uint64_t key = random_bits(seed, static_cast<std::uint32_t>(level), static_cast<std::uint64_t>(cells[i]), Stream::path);
-    keyed[i] = {key, cells[i]};
-    ++start[(key >> (64 - bits)) + 1];
-  }
+  for (Index cell : cells) ++start[(key_of(cell) >> (64 - bits)) + 1];
   for (std::size_t b = 1; b < start.size(); ++b) start[b] += start[b - 1];
   std::vector<std::size_t> fill(start.begin(), start.end() - 1);
-  for (const Keyed& k : keyed) sorted[fill[k.key >> (64 - bits)]++] = k;
+  std::vector<Keyed> sorted(n);
+  for (Index cell : cells) {
+    const std::uint64_t key = key_of(cell);
+    sorted[fill[key >> (64 - bits)]++] = {key, cell};
+  }
   for (std::size_t b = 0; b + 1 < start.size(); ++b)
     std::sort(sorted.begin() + static_cast<std::ptrdiff_t>(start[b]), sorted.begin() + static_cast<std::ptrdiff_t>(start[b + 1]),
               before);
@@ -78,13 +81,13 @@ std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, con
   // neighbours of each node taken lets a candidate check only its own bucket.
   std::vector<std::int64_t> blocked(static_cast<std::size_t>(padded[0] * padded[1] * padded[2]), -1);
   // The (padded) bucket of every path node, computed once: each node may be looked at many times.
-  std::vector<std::uint32_t> bucket_index(path.size());
+  std::vector<std::uint64_t> bucket_index(path.size());
   const Divider by_bucket[3] = {Divider(bucket[0]), Divider(bucket[1]), Divider(bucket[2])};
   for (std::size_t i = 0; i < path.size(); ++i) {
     const Ijk c = grid.cell(path[i]);
     Index f = 0;
     for (int a = 0; a < 3; ++a) f = f * padded[a] + by_bucket[a].divide(c[a] >> level) + (padded[a] > 1 ? 1 : 0);
-    bucket_index[i] = static_cast<std::uint32_t>(f);
+    bucket_index[i] = static_cast<std::uint64_t>(f);
   }
   const std::int64_t window = 4 * max_batch;  // candidates looked at per batch
   std::vector<Index> out;
@@ -98,13 +101,13 @@ std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, con
   std::size_t next = 0;
   std::int64_t id = 0;
   std::int64_t* blocked_at = blocked.data();
-  const std::uint32_t* bucket_of = bucket_index.data();
+  const std::uint64_t* bucket_of = bucket_index.data();
   while (next < path.size() || !pending.empty()) {
     starts.push_back(static_cast<std::int64_t>(out.size()));
     std::int64_t taken = 0, seen = 0;
     deferred.clear();
     auto consider = [&](std::size_t i) {
-      const std::uint32_t b = bucket_of[i];
+      const std::uint64_t b = bucket_of[i];
       if (blocked_at[b] != id) {
         for (std::int64_t o : around) blocked_at[static_cast<std::int64_t>(b) + o] = id;
         out.push_back(path[i]);

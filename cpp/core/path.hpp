@@ -28,7 +28,9 @@ std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, con
 
 // About the most nodes a conflict-free batch of `level` can hold: a node blocks its bucket and the
 // neighbouring ones, and random picks pack about one node per four buckets. A max_batch above it
-// only widens the window of candidates each batch looks at (4 * max_batch) for nothing.
+// hardly makes batches larger but widens the window of candidates each batch looks at
+// (4 * max_batch), which costs time; the window also decides which nodes share a batch, so the
+// path order (and so a realization) depends on max_batch.
 std::int64_t batch_capacity(const Grid& grid, int level, const Offset& reach);
 
 }  // namespace sl

@@ -38,14 +38,18 @@ inline bool keep_pass(Narrowed& out, const std::uint64_t*& cur, std::uint64_t*& 
 #endif
 
 SL_PORTABLE_KERNEL Narrowed narrow_portable(const std::uint64_t* start, std::uint64_t* a_buf, std::uint64_t* b_buf,
-                                            const std::uint64_t* const* plane, std::size_t m, std::size_t& lo,
-                                            std::size_t& hi, std::int64_t min_replicates, std::size_t sparse_ratio) {
+                                            const std::uint64_t* const* plane, std::size_t m, std::size_t& lo_ref,
+                                            std::size_t& hi_ref, std::int64_t min_replicates, std::size_t sparse_ratio) {
+  // Local copies: stores through the word pointers could otherwise alias these (and the compiler
+  // would not vectorise the loops).
+  std::size_t lo = lo_ref, hi = hi_ref;
   Narrowed out;
   const std::uint64_t* cur = start;
   std::uint64_t* dst = a_buf;  // never `cur`
   std::uint64_t* other = b_buf;
   for (std::size_t j = 0; j < m; ++j) {
     const std::uint64_t* p = plane[j];
+    out.words += hi - lo;
     std::size_t nonzero = 0;
     for (std::size_t i = lo; i < hi; ++i) {
       const std::uint64_t a = cur[i] & p[i];
@@ -64,6 +68,8 @@ SL_PORTABLE_KERNEL Narrowed narrow_portable(const std::uint64_t* start, std::uin
     if (keep_pass(out, cur, dst, other, lo, hi, j, first, last, nonzero, sparse_ratio)) break;
   }
   out.set = cur;
+  lo_ref = lo;
+  hi_ref = hi;
   return out;
 }
 
@@ -110,6 +116,7 @@ SL_AVX512_KERNEL Narrowed narrow_avx512(const std::uint64_t* start, std::uint64_
       __m512i a1 = _mm512_maskz_mov_epi64(lanes1, _mm512_loadu_si512(cur + lo + 8));
       const std::size_t kept_before = out.kept;
       for (; j < m; ++j) {
+        out.words += hi - lo;
         const __m512i b0 = _mm512_and_si512(a0, _mm512_loadu_si512(plane[j] + lo));
         const __m512i b1 = _mm512_and_si512(a1, _mm512_loadu_si512(plane[j] + lo + 8));
         if (min_replicates > 1) {
@@ -131,6 +138,7 @@ SL_AVX512_KERNEL Narrowed narrow_avx512(const std::uint64_t* start, std::uint64_
       break;
     }
     const std::uint64_t* p = plane[j];
+    out.words += hi - lo;
     // No data-dependent branch inside a pass: which words survive varies from call to call. The
     // first and last non-zero vectors are kept with conditional moves, then refined to words.
     std::size_t nonzero = 0;
@@ -177,9 +185,9 @@ bool has_avx512_popcount() {
 }
 #endif
 
-const Kernels kPortable{"portable", 64, narrow_portable, count_and_portable};
+const Kernels kPortable{"portable", narrow_portable, count_and_portable};
 #ifdef SL_HAVE_AVX512_PLANES
-const Kernels kAvx512{"avx512", 512, narrow_avx512, count_and_avx512};
+const Kernels kAvx512{"avx512", narrow_avx512, count_and_avx512};
 #endif
 
 }  // namespace

@@ -14,6 +14,7 @@ struct Narrowed {
   std::size_t kept = 0;                  // planes ANDed in before the set would have too few centres
   bool sparse = false;                   // stopped early: few non-empty words over a wide span
   const std::uint64_t* set = nullptr;    // the words of the set kept (the start set or a buffer)
+  std::size_t words = 0;                 // words ANDed, over all planes
 };
 
 // Words every array handed to the kernels must have past the last one it is read at: the
@@ -22,11 +23,8 @@ inline constexpr std::size_t kPadWords = 16;
 
 struct Kernels {
   const char* name;
-  // Centres the narrowing checks per plane in about the time a tree walk takes one step, measured
-  // on 2-D and 3-D queries: the query's cost model (PatternTree::query) uses it.
-  int centres_per_step;
-  // Node dropping on bit planes. `start` holds the candidate set in its words [lo, hi) (a word
-  // that is zero there may be anything elsewhere); it is only read. ANDs the set with plane[0],
+  // Node dropping on bit planes. `start` holds the candidate set in its words [lo, hi) (the words
+  // outside [lo, hi) may hold anything); it is only read. ANDs the set with plane[0],
   // plane[1], ... (whole planes, read at [lo, hi)) while the result keeps at least
   // `min_replicates` centres (and at least one), narrowing [lo, hi) to the words still non-zero;
   // the results go to the buffers `a` and `b` in turn (each as long as a plane). Stops after a

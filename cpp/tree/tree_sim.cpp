@@ -223,13 +223,13 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       }
     }
     // Build (or find) the ordered trees of this level, one per worker at a time.
-    if (std::any_of(stage_query.begin(), stage_query.end(), [](const StageQuery& q) { return !q.order.empty(); })) {
-      std::vector<std::size_t> wanted;
-      for (std::size_t i = 0; i < stage_query.size(); ++i)
-        if (!stage_query[i].order.empty()) wanted.push_back(i);
+    std::vector<std::size_t> wanted;
+    for (std::size_t i = 0; i < stage_query.size(); ++i)
+      if (!stage_query[i].order.empty()) wanted.push_back(i);
+    if (!wanted.empty()) {
       std::atomic<std::size_t> next{0};
       WorkControl build_ctl;
-      const int builders = std::min<int>(threads, static_cast<int>(std::max<std::size_t>(wanted.size(), 1)));
+      const int builders = std::min<int>(threads, static_cast<int>(wanted.size()));
       run_supervised(
           builders,
           [&](int, int) {
