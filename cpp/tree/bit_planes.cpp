@@ -29,6 +29,15 @@ inline bool keep_pass(Narrowed& out, const std::uint64_t*& cur, std::uint64_t*& 
   return out.sparse;
 }
 
+// The result of a narrowing: the set kept and its span, written back to the caller's bounds.
+inline Narrowed finish(Narrowed out, const std::uint64_t* cur, std::size_t lo, std::size_t hi, std::size_t& lo_ref,
+                       std::size_t& hi_ref) {
+  out.set = cur;
+  lo_ref = lo;
+  hi_ref = hi;
+  return out;
+}
+
 // Plain loops: with clones for processors with popcount and with AVX2, which the compiler
 // vectorises the AND and the zero test for.
 #if defined(__x86_64__) && defined(__ELF__) && (defined(__GNUC__) || defined(__clang__)) && !defined(STRATALOOM_NO_CLONES)
@@ -67,10 +76,7 @@ SL_PORTABLE_KERNEL Narrowed narrow_portable(const std::uint64_t* start, std::uin
     }
     if (keep_pass(out, cur, dst, other, lo, hi, j, first, last, nonzero, sparse_ratio)) break;
   }
-  out.set = cur;
-  lo_ref = lo;
-  hi_ref = hi;
-  return out;
+  return finish(out, cur, lo, hi, lo_ref, hi_ref);
 }
 
 SL_PORTABLE_KERNEL std::int64_t count_and_portable(const std::uint64_t* a, const std::uint64_t* b, std::size_t n) {
@@ -164,10 +170,7 @@ SL_AVX512_KERNEL Narrowed narrow_avx512(const std::uint64_t* start, std::uint64_
     }
     if (keep_pass(out, cur, dst, other, lo, hi, j, first, last, nonzero, sparse_ratio)) break;
   }
-  out.set = cur;
-  lo_ref = lo;
-  hi_ref = hi;
-  return out;
+  return finish(out, cur, lo, hi, lo_ref, hi_ref);
 }
 
 SL_AVX512_KERNEL std::int64_t count_and_avx512(const std::uint64_t* a, const std::uint64_t* b, std::size_t n) {
