@@ -195,6 +195,34 @@ const Kernels kAvx512{"avx512", narrow_avx512, count_and_avx512};
 
 }  // namespace
 
+SL_PORTABLE_KERNEL std::size_t keep_matching(const std::uint32_t* word_index, const std::uint64_t* word_alive,
+                                             std::size_t n, const std::uint64_t* plane, std::uint32_t* out_index,
+                                             std::uint64_t* out_alive, std::int64_t& total) {
+  std::size_t out = 0;
+  std::int64_t t = 0;
+  for (std::size_t i = 0; i < n; ++i) {
+    const std::uint32_t w = word_index[i];
+    const std::uint64_t a = word_alive[i] & plane[w];
+    out_index[out] = w;
+    out_alive[out] = a;
+    out += a != 0;
+    t += std::popcount(a);
+  }
+  total += t;
+  return out;
+}
+
+SL_PORTABLE_KERNEL void count_categories(const std::uint32_t* word_index, const std::uint64_t* word_alive,
+                                         std::size_t n, const std::uint64_t* category, std::size_t words,
+                                         std::size_t K, std::int64_t* counts) {
+  for (std::size_t q = 0; q < K; ++q) {
+    const std::uint64_t* c = category + q * words;
+    std::int64_t t = 0;
+    for (std::size_t i = 0; i < n; ++i) t += std::popcount(word_alive[i] & c[word_index[i]]);
+    counts[q] = t;
+  }
+}
+
 const Kernels& portable() { return kPortable; }
 
 const Kernels& best() {

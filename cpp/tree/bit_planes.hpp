@@ -38,6 +38,17 @@ struct Kernels {
   std::int64_t (*count_and)(const std::uint64_t* a, const std::uint64_t* b, std::size_t n);
 };
 
+// Kernels on a list of candidate words (for sets with few non-empty words over a wide span).
+// Copies the candidate words whose centres still match `plane` to out_index/out_alive, returns how
+// many there are and adds the centres still matching to `total`.
+std::size_t keep_matching(const std::uint32_t* word_index, const std::uint64_t* word_alive, std::size_t n,
+                          const std::uint64_t* plane, std::uint32_t* out_index, std::uint64_t* out_alive,
+                          std::int64_t& total);
+// Counts the candidate centres per centre category into counts[0..K) (`category`: K planes of
+// `words` words).
+void count_categories(const std::uint32_t* word_index, const std::uint64_t* word_alive, std::size_t n,
+                      const std::uint64_t* category, std::size_t words, std::size_t K, std::int64_t* counts);
+
 // The fastest kernels this processor runs, unless the environment variable STRATALOOM_KERNELS is
 // "portable" (for measuring and testing the plain loops on any machine).
 const Kernels& best();

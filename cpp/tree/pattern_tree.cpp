@@ -26,45 +26,6 @@ std::string mib(std::int64_t bytes) {
 
 }  // namespace
 
-namespace detail {
-
-// The bit-plane kernel: x86-64 processors have had a popcount instruction since about 2008, but the
-// baseline target does not, so a clone that uses it is chosen at load time where available.
-#if defined(__x86_64__) && defined(__ELF__) && (defined(__GNUC__) || defined(__clang__)) && !defined(STRATALOOM_NO_CLONES)
-#define SL_POPCOUNT_KERNEL __attribute__((target_clones("default", "popcnt")))
-#else
-#define SL_POPCOUNT_KERNEL
-#endif
-
-SL_POPCOUNT_KERNEL std::size_t keep_matching(const std::uint32_t* word_index, const std::uint64_t* word_alive,
-                                             std::size_t n, const std::uint64_t* plane, std::uint32_t* out_index,
-                                             std::uint64_t* out_alive, std::int64_t& total) {
-  std::size_t out = 0;
-  std::int64_t t = 0;
-  for (std::size_t i = 0; i < n; ++i) {
-    const std::uint32_t w = word_index[i];
-    const std::uint64_t a = word_alive[i] & plane[w];
-    out_index[out] = w;
-    out_alive[out] = a;
-    out += a != 0;
-    t += std::popcount(a);
-  }
-  total += t;
-  return out;
-}
-
-SL_POPCOUNT_KERNEL void count_categories(const std::uint32_t* word_index, const std::uint64_t* word_alive,
-                                         std::size_t n, const std::uint64_t* category, std::size_t words,
-                                         std::size_t K, std::int64_t* counts) {
-  for (std::size_t q = 0; q < K; ++q) {
-    const std::uint64_t* c = category + q * words;
-    std::int64_t t = 0;
-    for (std::size_t i = 0; i < n; ++i) t += std::popcount(word_alive[i] & c[word_index[i]]);
-    counts[q] = t;
-  }
-}
-
-}  // namespace detail
 
 std::int64_t default_memory_limit() {
   const long pages = sysconf(_SC_PHYS_PAGES);
@@ -580,7 +541,7 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
     for (; n < static_cast<std::size_t>(m); ++n) {
       const std::uint64_t* plane = planes + (static_cast<std::size_t>(index[n]) * K + value[n]) * words;
       std::int64_t total = 0;
-      const std::size_t out = detail::keep_matching(sc.word_index.data(), sc.word_alive.data(), sc.word_index.size(),
+      const std::size_t out = planes::keep_matching(sc.word_index.data(), sc.word_alive.data(), sc.word_index.size(),
                                                     plane, sc.next_index.data(), sc.next_alive.data(), total);
       ans.visited += 64 * static_cast<std::int64_t>(sc.word_index.size());  // centres, 64 at a time
       if (total < min_replicates || total == 0) break;
@@ -591,7 +552,7 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
       ans.kept = static_cast<int>(n + 1);
       counted = false;
       if (stop_when_pure && (++passes % 4 == 0 || out <= 8)) {
-        detail::count_categories(sc.word_index.data(), sc.word_alive.data(), out, category, words, K, sc.best.data());
+        planes::count_categories(sc.word_index.data(), sc.word_alive.data(), out, category, words, K, sc.best.data());
         counted = true;
         int present = 0;
         for (std::size_t q = 0; q < K; ++q) present += sc.best[q] > 0;
@@ -599,7 +560,7 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
       }
     }
     if (!counted)
-      detail::count_categories(sc.word_index.data(), sc.word_alive.data(), sc.word_index.size(), category, words, K,
+      planes::count_categories(sc.word_index.data(), sc.word_alive.data(), sc.word_index.size(), category, words, K,
                                sc.best.data());
   } else if (!counted) {
     for (std::size_t q = 0; q < K; ++q) sc.best[q] = kern.count_and(run + lo, category + q * words + lo, hi - lo);
