@@ -2,12 +2,14 @@
 // simulation invariants (hard data, determinism across thread counts), cancellation.
 #include <algorithm>
 #include <bit>
+#include <cstdlib>
 #include <random>
 
 #include "core/error.hpp"
 #include "merge/tau.hpp"
 #include "tests/check.hpp"
 #include "tree/bit_planes.hpp"
+#include "tree/event_gather.hpp"
 #include "tree/pattern_tree.hpp"
 #include "tree/tree_sim.hpp"
 
@@ -157,12 +159,54 @@ SL_TEST(empty_event_gives_the_proportions) {
   SL_CHECK(a.best == tree.category_counts() && b.best == tree.category_counts());
 }
 
+SL_TEST(event_gather_matches_a_direct_read) {
+  // Both versions (vector where the processor has it, plain loop) against reading every template
+  // node with bounds tests, near the faces and inside, on 2-D and 3-D grids at several steps.
+  std::mt19937_64 gen(21);
+  for (int trial = 0; trial < 300; ++trial) {
+    const bool flat = trial % 2 == 0;
+    const Grid grid({flat ? 1 : 1 + static_cast<Index>(gen() % 9), 1 + static_cast<Index>(gen() % 40),
+                     1 + static_cast<Index>(gen() % 40)});
+    const Index step = Index{1} << (gen() % 3);
+    const Template tpl = Template::ellipsoid({flat ? 0.0 : 2.5, 3.5, 3.5}, 1 + static_cast<std::int64_t>(gen() % 60));
+    std::vector<std::int16_t> sim(static_cast<std::size_t>(grid.size()) + 1);
+    for (auto& v : sim) v = gen() % 3 == 0 ? -1 : static_cast<std::int16_t>(gen() % 5);
+    const EventGather fast(grid, tpl.offsets(), step);
+    setenv("STRATALOOM_KERNELS", "portable", 1);
+    const EventGather plain(grid, tpl.offsets(), step);
+    unsetenv("STRATALOOM_KERNELS");
+    const std::size_t room = tpl.size() + EventGather::kPad;
+    for (int probe = 0; probe < 20; ++probe) {
+      const Index cell = static_cast<Index>(gen() % static_cast<std::uint64_t>(grid.size()));
+      const Ijk c = grid.cell(cell);
+      const int cap = gen() % 3 == 0 ? 1 + static_cast<int>(gen() % 8) : static_cast<int>(tpl.size());
+      std::vector<std::int32_t> want_index, fi(room), pi(room);
+      std::vector<std::uint8_t> want_value, fv(room), pv(room);
+      for (std::size_t i = 0; i < tpl.size() && static_cast<int>(want_index.size()) < cap; ++i) {
+        const Offset& o = tpl.offsets()[i];
+        const Ijk q{c[0] + o[0] * step, c[1] + o[1] * step, c[2] + o[2] * step};
+        if (!grid.contains(q) || sim[static_cast<std::size_t>(grid.index(q))] < 0) continue;
+        want_index.push_back(static_cast<std::int32_t>(i));
+        want_value.push_back(static_cast<std::uint8_t>(sim[static_cast<std::size_t>(grid.index(q))]));
+      }
+      const int mf = fast.gather(sim.data(), cell, c, cap, fi.data(), fv.data());
+      const int mp = plain.gather(sim.data(), cell, c, cap, pi.data(), pv.data());
+      SL_CHECK(mf == static_cast<int>(want_index.size()) && mp == mf);
+      SL_CHECK(std::equal(want_index.begin(), want_index.end(), fi.begin()) &&
+               std::equal(want_index.begin(), want_index.end(), pi.begin()));
+      SL_CHECK(std::equal(want_value.begin(), want_value.end(), fv.begin()) &&
+               std::equal(want_value.begin(), want_value.end(), pv.begin()));
+    }
+  }
+}
+
 SL_TEST(bit_plane_kernels_agree) {
   // The AVX-512 kernels (where the processor has them) and the plain loops give the same sets.
   const planes::Kernels& fast = planes::best();
   const planes::Kernels& plain = planes::portable();
   std::mt19937_64 gen(11);
-  for (int trial = 0; trial < 400; ++trial) {
+  int stopped_pure = 0;
+  for (int trial = 0; trial < 800; ++trial) {
     const std::size_t words = 1 + gen() % 200;
     const std::size_t m = 1 + gen() % 12;
     std::vector<std::uint64_t> all((m + 1) * words + planes::kPadWords);
@@ -179,30 +223,68 @@ SL_TEST(bit_plane_kernels_agree) {
     all[hi - 1] |= std::uint64_t{1} << 63;
     const std::int64_t min_rep = 1 + static_cast<std::int64_t>(gen() % 4);
     const std::size_t ratio = gen() % 2 ? 16 : 40;
+    // Half the trials stop once one code is left: K code planes, every centre in one of them,
+    // words mostly of one code so that sets often become pure.
+    const std::size_t K = 1 + gen() % 4;
+    std::vector<std::uint64_t> codes(K * words + planes::kPadWords, 0);
+    for (std::size_t w = 0; w < words; ++w) {
+      const std::size_t main_code = gen() % K;
+      const bool mixed = gen() % 4 == 0;
+      for (unsigned bit = 0; bit < 64; ++bit)
+        codes[(mixed ? gen() % K : main_code) * words + w] |= std::uint64_t{1} << bit;
+    }
+    const planes::CategoryPlanes code_planes{codes.data(), words, K};
+    const planes::CategoryPlanes* pure = gen() % 2 ? &code_planes : nullptr;
+    auto code_of_set = [&](const std::vector<std::uint64_t>& set) {  // the one code of a set, or -1
+      int found = -1;
+      for (std::size_t q = 0; q < K; ++q)
+        for (std::size_t w = 0; w < words; ++w)
+          if (set[w] & codes[q * words + w]) {
+            if (found >= 0 && found != static_cast<int>(q)) return -1;
+            found = static_cast<int>(q);
+          }
+      return found;
+    };
     // The start set is only read: the kernels write to the two buffers.
     const std::vector<std::uint64_t> start(all.begin(), all.begin() + static_cast<std::ptrdiff_t>(words + planes::kPadWords));
     std::vector<std::uint64_t> a(words + planes::kPadWords), a2(a), b(a), b2(a);
     std::size_t lo_a = lo, hi_a = hi, lo_b = lo, hi_b = hi;
-    const auto x = fast.narrow(start.data(), a.data(), a2.data(), plane.data(), m, lo_a, hi_a, min_rep, ratio);
-    const auto y = plain.narrow(start.data(), b.data(), b2.data(), plane.data(), m, lo_b, hi_b, min_rep, ratio);
+    const auto x = fast.narrow(start.data(), a.data(), a2.data(), plane.data(), m, lo_a, hi_a, min_rep, ratio, pure);
+    const auto y = plain.narrow(start.data(), b.data(), b2.data(), plane.data(), m, lo_b, hi_b, min_rep, ratio, pure);
     SL_CHECK(std::equal(start.begin(), start.begin() + static_cast<std::ptrdiff_t>(words), all.begin()));
     const std::uint64_t* ra = x.set;
     const std::uint64_t* rb = y.set;
     SL_CHECK((x.kept == 0) == (ra == start.data()));
-    SL_CHECK(x.kept == y.kept && x.sparse == y.sparse && lo_a == lo_b && hi_a == hi_b);
+    SL_CHECK(x.kept == y.kept && x.sparse == y.sparse && x.category == y.category && lo_a == lo_b && hi_a == hi_b);
+    SL_CHECK(pure != nullptr || x.category == -1);
     SL_CHECK(std::equal(ra + lo_a, ra + hi_a, rb + lo_b));
     SL_CHECK(ra[lo_a] != 0 && ra[hi_a - 1] != 0);
     // Exactness against a word-by-word reference: the set kept is the AND of the first `kept`
     // planes, and one more plane would leave fewer than min_rep centres (unless it stopped early).
     std::int64_t total = 0;
+    std::vector<std::uint64_t> kept_set(words, 0);
     for (std::size_t w = lo; w < hi; ++w) {
       std::uint64_t v = all[w];
       for (std::size_t j = 0; j < x.kept; ++j) v &= plane[j][w];
       SL_CHECK((w >= lo_a && w < hi_a) ? v == ra[w] : v == 0);
       total += std::popcount(v);
+      kept_set[w] = v;
     }
     SL_CHECK(x.kept == 0 || total >= min_rep);
-    if (!x.sparse && x.kept < m) {
+    // Stopping on one code: at the first set that holds one code, and only there.
+    if (x.category >= 0) SL_CHECK(code_of_set(kept_set) == x.category);
+    if (pure && x.category < 0 && !x.sparse && x.kept < m) SL_CHECK(code_of_set(kept_set) == -1);
+    stopped_pure += x.category >= 0;
+    if (pure)
+      for (std::size_t t = 0; t < x.kept; ++t) {
+        std::vector<std::uint64_t> earlier(words, 0);
+        for (std::size_t w = lo; w < hi; ++w) {
+          earlier[w] = all[w];
+          for (std::size_t j = 0; j < t; ++j) earlier[w] &= plane[j][w];
+        }
+        SL_CHECK(code_of_set(earlier) == -1);
+      }
+    if (!x.sparse && x.category < 0 && x.kept < m) {
       std::int64_t after = 0;
       for (std::size_t w = lo; w < hi; ++w) {
         std::uint64_t v = all[w];
@@ -214,4 +296,5 @@ SL_TEST(bit_plane_kernels_agree) {
     const std::size_t n = 1 + gen() % words;
     SL_CHECK(fast.count_and(all.data(), all.data() + words, n) == plain.count_and(all.data(), all.data() + words, n));
   }
+  SL_CHECK(stopped_pure > 100);  // the stop on one code was exercised
 }

@@ -38,6 +38,19 @@ inline Narrowed finish(Narrowed out, const std::uint64_t* cur, std::size_t lo, s
   return out;
 }
 
+// The code of the centre at bit `bit` of word `w` (every centre holds one).
+inline int category_of(const CategoryPlanes& c, std::size_t w, unsigned bit) {
+  const std::uint64_t mask = std::uint64_t{1} << bit;
+  for (std::size_t q = 0; q + 1 < c.count; ++q)
+    if (c.planes[q * c.words + w] & mask) return static_cast<int>(q);
+  return static_cast<int>(c.count) - 1;
+}
+
+// The code of the first centre of a set whose first non-zero word is `w`.
+inline int first_category(const CategoryPlanes& c, const std::uint64_t* set, std::size_t w) {
+  return category_of(c, w, static_cast<unsigned>(std::countr_zero(set[w])));
+}
+
 // Plain loops: with clones for processors with popcount and with AVX2, which the compiler
 // vectorises the AND and the zero test for.
 #if defined(__x86_64__) && defined(__ELF__) && (defined(__GNUC__) || defined(__clang__)) && !defined(STRATALOOM_NO_CLONES)
@@ -48,7 +61,8 @@ inline Narrowed finish(Narrowed out, const std::uint64_t* cur, std::size_t lo, s
 
 SL_PORTABLE_KERNEL Narrowed narrow_portable(const std::uint64_t* start, std::uint64_t* a_buf, std::uint64_t* b_buf,
                                             const std::uint64_t* const* plane, std::size_t m, std::size_t& lo_ref,
-                                            std::size_t& hi_ref, std::int64_t min_replicates, std::size_t sparse_ratio) {
+                                            std::size_t& hi_ref, std::int64_t min_replicates, std::size_t sparse_ratio,
+                                            const CategoryPlanes* pure) {
   // Local copies: stores through the word pointers could otherwise alias these (and the compiler
   // would not vectorise the loops).
   std::size_t lo = lo_ref, hi = hi_ref;
@@ -57,6 +71,16 @@ SL_PORTABLE_KERNEL Narrowed narrow_portable(const std::uint64_t* start, std::uin
   std::uint64_t* dst = a_buf;  // never `cur`
   std::uint64_t* other = b_buf;
   for (std::size_t j = 0; j < m; ++j) {
+    if (pure) {
+      const int q = first_category(*pure, cur, lo);
+      const std::uint64_t* c = pure->planes + static_cast<std::size_t>(q) * pure->words;
+      std::uint64_t other_codes = 0;
+      for (std::size_t i = lo; i < hi; ++i) other_codes |= cur[i] & ~c[i];
+      if (other_codes == 0) {
+        out.category = q;
+        break;
+      }
+    }
     const std::uint64_t* p = plane[j];
     out.words += hi - lo;
     std::size_t nonzero = 0;
@@ -104,9 +128,11 @@ SL_AVX512_KERNEL inline unsigned words_set(const std::uint64_t* words, std::size
   return static_cast<unsigned>(_mm512_mask_test_epi64_mask(lanes_left(end - at), a, a));
 }
 
-SL_AVX512_KERNEL Narrowed narrow_avx512(const std::uint64_t* start, std::uint64_t* a_buf, std::uint64_t* b_buf,
-                                        const std::uint64_t* const* plane, std::size_t m, std::size_t& lo_ref,
-                                        std::size_t& hi_ref, std::int64_t min_replicates, std::size_t sparse_ratio) {
+template <bool kPure>
+SL_AVX512_KERNEL Narrowed narrow_avx512_with(const std::uint64_t* start, std::uint64_t* a_buf, std::uint64_t* b_buf,
+                                             const std::uint64_t* const* plane, std::size_t m, std::size_t& lo_ref,
+                                             std::size_t& hi_ref, std::int64_t min_replicates, std::size_t sparse_ratio,
+                                             const CategoryPlanes* pure) {
   // Local copies: stores through the word pointers could otherwise alias these.
   const std::uint64_t* cur = start;
   std::uint64_t* dst = a_buf;    // where the next pass writes: never `cur`
@@ -122,6 +148,20 @@ SL_AVX512_KERNEL Narrowed narrow_avx512(const std::uint64_t* start, std::uint64_
       __m512i a1 = _mm512_maskz_mov_epi64(lanes1, _mm512_loadu_si512(cur + lo + 8));
       const std::size_t kept_before = out.kept;
       for (; j < m; ++j) {
+        if constexpr (kPure) {
+          const unsigned set = _mm512_test_epi64_mask(a0, a0) | static_cast<unsigned>(_mm512_test_epi64_mask(a1, a1)) << 8;
+          const unsigned w = static_cast<unsigned>(std::countr_zero(set));  // the set is never empty here
+          const std::uint64_t word = _mm_cvtsi128_si64(_mm512_castsi512_si128(
+              _mm512_maskz_compress_epi64(static_cast<__mmask8>(1u << (w & 7)), w < 8 ? a0 : a1)));
+          const int q = category_of(*pure, lo + w, static_cast<unsigned>(std::countr_zero(word)));
+          const std::uint64_t* c = pure->planes + static_cast<std::size_t>(q) * pure->words + lo;
+          const __m512i rest = _mm512_or_si512(_mm512_andnot_si512(_mm512_loadu_si512(c), a0),
+                                               _mm512_andnot_si512(_mm512_loadu_si512(c + 8), a1));
+          if (_mm512_test_epi64_mask(rest, rest) == 0) {
+            out.category = q;
+            break;
+          }
+        }
         out.words += hi - lo;
         const __m512i b0 = _mm512_and_si512(a0, _mm512_loadu_si512(plane[j] + lo));
         const __m512i b1 = _mm512_and_si512(a1, _mm512_loadu_si512(plane[j] + lo + 8));
@@ -134,7 +174,7 @@ SL_AVX512_KERNEL Narrowed narrow_avx512(const std::uint64_t* start, std::uint64_
         a1 = b1;
         out.kept = j + 1;
       }
-      if (out.kept == kept_before) break;  // nothing added: the set stays where it is
+      if (out.kept == kept_before) break;  // nothing added: the set stays where it is (and is in place)
       _mm512_storeu_si512(dst + lo, a0);
       _mm512_storeu_si512(dst + lo + 8, a1);
       cur = dst;
@@ -144,21 +184,33 @@ SL_AVX512_KERNEL Narrowed narrow_avx512(const std::uint64_t* start, std::uint64_
       break;
     }
     const std::uint64_t* p = plane[j];
-    out.words += hi - lo;
     // No data-dependent branch inside a pass: which words survive varies from call to call. The
     // first and last non-zero vectors are kept with conditional moves, then refined to words.
     std::size_t nonzero = 0;
     std::size_t f = hi, l = hi;
+    // With `pure`, the same pass checks whether the set it starts from holds only the code of its
+    // first centre (the centres outside that code's plane, `other`).
+    const int q = kPure ? first_category(*pure, cur, lo) : 0;
+    const std::uint64_t* c = kPure ? pure->planes + static_cast<std::size_t>(q) * pure->words : p;
+    unsigned impure = 0;
     for (std::size_t i = lo; i < hi; i += 8) {
       // Whole vectors (the arrays have room past hi): masked stores would stall the loads of the
       // next pass, which read them back. Lanes past hi are left out of the counts.
-      const __m512i a = _mm512_and_si512(_mm512_loadu_si512(cur + i), _mm512_loadu_si512(p + i));
+      const __mmask8 lanes = lanes_left(hi - i);
+      const __m512i s = _mm512_loadu_si512(cur + i);
+      const __m512i a = _mm512_and_si512(s, _mm512_loadu_si512(p + i));
       _mm512_storeu_si512(dst + i, a);
-      const unsigned set = _mm512_mask_test_epi64_mask(lanes_left(hi - i), a, a);
+      const unsigned set = _mm512_mask_test_epi64_mask(lanes, a, a);
+      if constexpr (kPure) impure |= _mm512_mask_test_epi64_mask(lanes, s, _mm512_andnot_si512(_mm512_loadu_si512(c + i), s));
       nonzero += static_cast<std::size_t>(std::popcount(set));
       f = (f == hi && set != 0) ? i : f;
       l = set != 0 ? i : l;
     }
+    if (kPure && impure == 0) {
+      out.category = q;
+      break;
+    }
+    out.words += hi - lo;
     if (nonzero == 0) break;
     const std::size_t first = f + static_cast<std::size_t>(std::countr_zero(words_set(dst, f, hi)));
     const std::size_t last = l + 31 - static_cast<std::size_t>(std::countl_zero(words_set(dst, l, hi)));
@@ -171,6 +223,14 @@ SL_AVX512_KERNEL Narrowed narrow_avx512(const std::uint64_t* start, std::uint64_
     if (keep_pass(out, cur, dst, other, lo, hi, j, first, last, nonzero, sparse_ratio)) break;
   }
   return finish(out, cur, lo, hi, lo_ref, hi_ref);
+}
+
+SL_AVX512_KERNEL Narrowed narrow_avx512(const std::uint64_t* start, std::uint64_t* a_buf, std::uint64_t* b_buf,
+                                        const std::uint64_t* const* plane, std::size_t m, std::size_t& lo,
+                                        std::size_t& hi, std::int64_t min_replicates, std::size_t sparse_ratio,
+                                        const CategoryPlanes* pure) {
+  return pure ? narrow_avx512_with<true>(start, a_buf, b_buf, plane, m, lo, hi, min_replicates, sparse_ratio, pure)
+              : narrow_avx512_with<false>(start, a_buf, b_buf, plane, m, lo, hi, min_replicates, sparse_ratio, pure);
 }
 
 SL_AVX512_KERNEL std::int64_t count_and_avx512(const std::uint64_t* a, const std::uint64_t* b, std::size_t n) {

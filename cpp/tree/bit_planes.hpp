@@ -9,10 +9,19 @@
 
 namespace sl::planes {
 
+// The centre category of every centre as K bit planes of `words` words each (plane q: "the centre
+// holds code q"), for stopping a narrowing once one category is left.
+struct CategoryPlanes {
+  const std::uint64_t* planes = nullptr;
+  std::size_t words = 0;
+  std::size_t count = 0;  // K
+};
+
 // A candidate set narrowed by informed nodes (see Kernels::narrow).
 struct Narrowed {
   std::size_t kept = 0;                  // planes ANDed in before the set would have too few centres
   bool sparse = false;                   // stopped early: few non-empty words over a wide span
+  int category = -1;                     // stopped early: every centre of the set holds this code
   const std::uint64_t* set = nullptr;    // the words of the set kept (the start set or a buffer)
   std::size_t words = 0;                 // words ANDed, over all planes
 };
@@ -29,11 +38,13 @@ struct Kernels {
   // `min_replicates` centres (and at least one), narrowing [lo, hi) to the words still non-zero;
   // the results go to the buffers `a` and `b` in turn (each as long as a plane). Stops after a
   // plane (counted in kept) once the span is over 16 words and fewer than one word in
-  // `sparse_ratio` of it is non-zero. The set kept is `set`[lo, hi), its first and last word
-  // non-zero (`start` itself when no plane was kept).
+  // `sparse_ratio` of it is non-zero. With `pure` given, it also stops before a plane when every
+  // centre of the set holds one code (more planes cannot change the probabilities; `category` says
+  // which). The set kept is `set`[lo, hi), its first and last word non-zero (`start` itself when no
+  // plane was kept). `words` counts the words ANDed by the planes kept or tried.
   Narrowed (*narrow)(const std::uint64_t* start, std::uint64_t* a, std::uint64_t* b, const std::uint64_t* const* plane,
                      std::size_t m, std::size_t& lo, std::size_t& hi, std::int64_t min_replicates,
-                     std::size_t sparse_ratio);
+                     std::size_t sparse_ratio, const CategoryPlanes* pure);
   // Bits set in a[i] & b[i] over i < n.
   std::int64_t (*count_and)(const std::uint64_t* a, const std::uint64_t* b, std::size_t n);
 };

@@ -514,13 +514,14 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
     start = run;
   }
   // Add the informed nodes one at a time, narrowing [lo, hi) to the words still holding a match,
-  // and stop when too few replicates remain (node dropping). Only totals are needed for that, so
-  // the categories are counted once, for the set kept. (The dense passes do not stop once one
-  // category holds every match: testing for it costs about as much as a pass. The list of words
-  // below, where it is cheap, does.) Sets that keep few words over a wide span continue as a list
-  // of their non-empty words.
+  // and stop when too few replicates remain (node dropping), or with stop_when_pure once one
+  // category holds every match. Only totals are needed for that, so the categories are counted
+  // once, for the set kept. Sets that keep few words over a wide span continue as a list of their
+  // non-empty words.
+  const planes::CategoryPlanes codes{category, words, K};
   const planes::Narrowed nw = kern.narrow(start, sc.run.data(), sc.next_run.data(), sc.plane_at.data() + n,
-                                          static_cast<std::size_t>(m) - n, lo, hi, min_replicates, 16);
+                                          static_cast<std::size_t>(m) - n, lo, hi, min_replicates, 16,
+                                          stop_when_pure ? &codes : nullptr);
   ans.visited += 64 * static_cast<std::int64_t>(nw.words);  // centres, 64 at a time
   n += nw.kept;
   ans.kept = static_cast<int>(n);
@@ -562,6 +563,9 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
     if (!counted)
       planes::count_categories(sc.word_index.data(), sc.word_alive.data(), sc.word_index.size(), category, words, K,
                                sc.best.data());
+  } else if (!counted && nw.category >= 0) {
+    std::fill(sc.best.begin(), sc.best.end(), 0);
+    sc.best[static_cast<std::size_t>(nw.category)] = kern.count_and(run + lo, run + lo, hi - lo);
   } else if (!counted) {
     for (std::size_t q = 0; q < K; ++q) sc.best[q] = kern.count_and(run + lo, category + q * words + lo, hi - lo);
   }

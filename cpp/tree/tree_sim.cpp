@@ -11,6 +11,7 @@
 #include "core/path.hpp"
 #include "core/random.hpp"
 #include "merge/tau.hpp"
+#include "tree/event_gather.hpp"
 
 namespace sl {
 
@@ -103,7 +104,8 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
   require(opt.steering >= 0 && opt.steering <= 1, "steering", "must be in [0, 1].");
   require(opt.soft.size() <= 32, "soft", "must hold at most 32 sources.");
 
-  std::vector<std::int16_t> sim(static_cast<std::size_t>(N), -1);
+  // One spare entry past the last cell: the vector event gather reads 4 bytes per node.
+  std::vector<std::int16_t> sim(static_cast<std::size_t>(N) + 1, -1);
   std::vector<std::int64_t> counts(Ks, 0);  // informed cells per category (hard + simulated)
   if (!hard.empty()) {
     for (Index i = 0; i < N; ++i) {
@@ -135,8 +137,8 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
   const int threads = resolve_threads(opt.threads);
   std::vector<Worker> workers(static_cast<std::size_t>(threads));
   for (auto& w : workers) {
-    w.index.resize(D);
-    w.value.resize(D);
+    w.index.resize(D + EventGather::kPad);
+    w.value.resize(D + EventGather::kPad);
     w.probs.resize(Ks);
     w.merged.resize(Ks);
     w.sources.resize(Ks * (1 + opt.soft.size()));
@@ -242,13 +244,9 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
     }
     // Preparing a level of a large grid takes a moment: give Ctrl-C a chance before running it.
     if (poll && !poll(ctl.done.load(), ctl.total)) throw Cancelled();
-    // Flat offsets of each tree's template at this level, for nodes away from the grid's faces.
-    std::vector<std::vector<Index>> flat_offsets(trees.size());
-    std::vector<Offset> reaches(trees.size());
-    for (std::size_t t = 0; t < trees.size(); ++t) reaches[t] = trees[t]->base_template().reach();
-    for (std::size_t t = 0; t < trees.size(); ++t)
-      for (const Offset& o : trees[t]->base_template().offsets())
-        flat_offsets[t].push_back(grid.index({Index{o[0]} * step, Index{o[1]} * step, Index{o[2]} * step}));
+    // Each tree's template at this level, for reading data events.
+    std::vector<EventGather> gathers;
+    for (const PatternTree* t : trees) gathers.emplace_back(grid, t->base_template().offsets(), step);
     std::vector<std::int64_t> snapshot(counts);  // proportions seen by one batch
     std::int64_t informed_total = 0;
     for (auto c : counts) informed_total += c;
@@ -259,35 +257,10 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       const Ijk c = grid.cell(cell);
       const PatternTree& t = tree_of(cell);
       const std::size_t zone_id = zone.empty() ? 0 : zone[static_cast<std::size_t>(cell)];
-      const std::vector<Offset>& offsets = t.base_template().offsets();
       const StageQuery& sq = stage_query[zone_id * 8 + static_cast<std::size_t>(staged ? parity_of_cell(cell) : 0)];
       // Data event: the informed template nodes nearest first (template order), up to the cap on
-      // conditioning nodes. Away from the grid's faces every node is inside: flat offsets, no tests.
-      int m = 0;
-      const Offset& r = reaches[zone_id];
-      bool inside = true;
-      for (int a = 0; a < 3; ++a) inside = inside && c[a] >= r[a] * step && c[a] < grid.shape()[a] - r[a] * step;
-      if (inside) {
-        const std::vector<Index>& flat = flat_offsets[zone_id];
-        const std::int16_t* here = sim.data() + cell;
-        for (std::size_t i = 0; i < flat.size() && m < cap; ++i) {
-          const std::int16_t v = here[flat[i]];
-          w.index[static_cast<std::size_t>(m)] = static_cast<std::int32_t>(i);
-          w.value[static_cast<std::size_t>(m)] = static_cast<std::uint8_t>(v);
-          m += v >= 0;
-        }
-      } else {
-        for (std::size_t i = 0; i < offsets.size() && m < cap; ++i) {
-          const Offset& o = offsets[i];
-          const Ijk q{c[0] + Index{o[0]} * step, c[1] + Index{o[1]} * step, c[2] + Index{o[2]} * step};
-          if (!grid.contains(q)) continue;
-          const std::int16_t v = sim[static_cast<std::size_t>(grid.index(q))];
-          if (v < 0) continue;
-          w.index[static_cast<std::size_t>(m)] = static_cast<std::int32_t>(i);
-          w.value[static_cast<std::size_t>(m)] = static_cast<std::uint8_t>(v);
-          ++m;
-        }
-      }
+      // conditioning nodes.
+      const int m = gathers[zone_id].gather(sim.data(), cell, c, cap, w.index.data(), w.value.data());
       // A staged class queries its nodes in stage order (positions, increasing): insertion sort, as
       // events are short and mostly in order already.
       if (!sq.order.empty()) {
@@ -404,6 +377,7 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
     for (Index r : relocated) sim[static_cast<std::size_t>(r)] = -1;
     released.swap(relocated);
   }
+  sim.pop_back();  // the spare entry
   return sim;
 }
 
