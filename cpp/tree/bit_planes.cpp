@@ -151,12 +151,14 @@ SL_AVX512_KERNEL Narrowed narrow_avx512_with(const std::uint64_t* start, std::ui
         if constexpr (kPure) {
           const unsigned set = _mm512_test_epi64_mask(a0, a0) | static_cast<unsigned>(_mm512_test_epi64_mask(a1, a1)) << 8;
           const unsigned w = static_cast<unsigned>(std::countr_zero(set));  // the set is never empty here
-          const std::uint64_t word = _mm_cvtsi128_si64(_mm512_castsi512_si128(
-              _mm512_maskz_compress_epi64(static_cast<__mmask8>(1u << (w & 7)), w < 8 ? a0 : a1)));
+          alignas(64) std::uint64_t lanes[16];
+          _mm512_store_si512(lanes, a0);
+          _mm512_store_si512(lanes + 8, a1);
+          const std::uint64_t word = lanes[w];
           const int q = category_of(*pure, lo + w, static_cast<unsigned>(std::countr_zero(word)));
           const std::uint64_t* c = pure->planes + static_cast<std::size_t>(q) * pure->words + lo;
-          const __m512i rest = _mm512_or_si512(_mm512_andnot_si512(_mm512_loadu_si512(c), a0),
-                                               _mm512_andnot_si512(_mm512_loadu_si512(c + 8), a1));
+          const __m512i rest = _mm512_or_si512(_mm512_maskz_andnot_epi64(0xFF, _mm512_loadu_si512(c), a0),
+                                               _mm512_maskz_andnot_epi64(0xFF, _mm512_loadu_si512(c + 8), a1));
           if (_mm512_test_epi64_mask(rest, rest) == 0) {
             out.category = q;
             break;
@@ -189,7 +191,7 @@ SL_AVX512_KERNEL Narrowed narrow_avx512_with(const std::uint64_t* start, std::ui
     std::size_t nonzero = 0;
     std::size_t f = hi, l = hi;
     // With `pure`, the same pass checks whether the set it starts from holds only the code of its
-    // first centre (the centres outside that code's plane, `other`).
+    // first centre (lanes holding centres outside that code's plane: `impure`).
     const int q = kPure ? first_category(*pure, cur, lo) : 0;
     const std::uint64_t* c = kPure ? pure->planes + static_cast<std::size_t>(q) * pure->words : p;
     unsigned impure = 0;
@@ -201,7 +203,8 @@ SL_AVX512_KERNEL Narrowed narrow_avx512_with(const std::uint64_t* start, std::ui
       const __m512i a = _mm512_and_si512(s, _mm512_loadu_si512(p + i));
       _mm512_storeu_si512(dst + i, a);
       const unsigned set = _mm512_mask_test_epi64_mask(lanes, a, a);
-      if constexpr (kPure) impure |= _mm512_mask_test_epi64_mask(lanes, s, _mm512_andnot_si512(_mm512_loadu_si512(c + i), s));
+      if constexpr (kPure)
+        impure |= _mm512_mask_test_epi64_mask(lanes, s, _mm512_maskz_andnot_epi64(0xFF, _mm512_loadu_si512(c + i), s));
       nonzero += static_cast<std::size_t>(std::popcount(set));
       f = (f == hi && set != 0) ? i : f;
       l = set != 0 ? i : l;

@@ -111,6 +111,7 @@ __attribute__((target("avx512f"))) int EventGather::gather_vector(const std::int
   const __m512i nx = _mm512_set1_epi32(static_cast<std::int32_t>(n[2]));
   const __m512i iota = _mm512_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15);
   const __m512i zero = _mm512_setzero_si512();
+  const __m512i sign = _mm512_set1_epi32(0x8000);
   const void* here = sim + cell;
   const std::size_t D = offsets_.size();
   int m = 0;
@@ -124,11 +125,12 @@ __attribute__((target("avx512f"))) int EventGather::gather_vector(const std::int
     inside = _mm512_mask_cmplt_epu32_mask(inside, x, nx);
     // 4 bytes from each node's code (the low half; the grid has one spare entry at its end).
     const __m512i raw = _mm512_mask_i32gather_epi32(zero, inside, _mm512_loadu_si512(flat32_.data() + i), here, 2);
-    const __m512i code = _mm512_srai_epi32(_mm512_slli_epi32(raw, 16), 16);
-    const __mmask16 informed = _mm512_mask_cmpge_epi32_mask(inside, code, zero);
+    // Informed: the code's sign bit (bit 15) clear; codes are below 255, so their low byte is the code.
+    const __mmask16 informed = _mm512_mask_testn_epi32_mask(inside, raw, sign);
     const __m512i at = _mm512_add_epi32(iota, _mm512_set1_epi32(static_cast<std::int32_t>(i)));
     _mm512_storeu_si512(index + m, _mm512_maskz_compress_epi32(informed, at));
-    _mm_storeu_si128(reinterpret_cast<__m128i*>(value + m), _mm512_cvtepi32_epi8(_mm512_maskz_compress_epi32(informed, code)));
+    _mm_storeu_si128(reinterpret_cast<__m128i*>(value + m),
+                     _mm512_maskz_cvtepi32_epi8(0xFFFF, _mm512_maskz_compress_epi32(informed, raw)));
     m += std::popcount(static_cast<unsigned>(informed));
   }
   return m < cap ? m : cap;
