@@ -1,10 +1,11 @@
 // Threads for the engines: a supervised run on worker threads while the calling thread polls for
 // cancellation and reports progress, and a batch runner for conflict-free batches of path nodes.
 //
-// The calling thread never computes: it wakes every `interval` to call `poll(done, total)`, which
-// the bindings use to check Ctrl-C and to call a Python progress callback with the GIL held. When
-// poll returns false the workers stop at their next check and Cancelled is thrown once all have
-// joined, so no thread outlives the call.
+// In a supervised run the calling thread does not compute: it wakes every `interval` to call
+// `poll(done, total)`, which the bindings use to check Ctrl-C and to call a Python progress
+// callback with the GIL held. When poll returns false the workers stop at their next check and
+// Cancelled is thrown once all have joined, so no thread outlives the call. (A batch run with one
+// worker computes on the calling thread and polls between batches.)
 #pragma once
 
 #include <algorithm>
@@ -101,10 +102,13 @@ inline void run_supervised(int threads, const std::function<void(int, int)>& bod
 // [starts[b], starts[b + 1]) of one batch run concurrently (they must not read each other's
 // results), then after_batch(b) runs on one thread before the next batch starts. `starts` ends
 // with the total count. Results are the same for any number of threads as long as node_fn only
-// reads state fixed before the batch and writes its own output.
+// reads state fixed before the batch and writes its own output. With one worker the batches run
+// on the calling thread, which polls between batches (at most every `interval`): starting and
+// joining a thread would cost as much as simulating a small grid.
 template <class NodeFn, class AfterBatch>
 void run_batches(int threads, const std::vector<std::int64_t>& starts, NodeFn&& node_fn, AfterBatch&& after_batch,
-                 WorkControl& ctl, const Poll& poll) {
+                 WorkControl& ctl, const Poll& poll,
+                 std::chrono::milliseconds interval = std::chrono::milliseconds(100)) {
   threads = resolve_threads(threads);
   const std::size_t batches = starts.empty() ? 0 : starts.size() - 1;
   if (batches == 0) return;
@@ -112,6 +116,24 @@ void run_batches(int threads, const std::vector<std::int64_t>& starts, NodeFn&& 
   std::int64_t widest = 1;
   for (std::size_t b = 0; b < batches; ++b) widest = std::max(widest, starts[b + 1] - starts[b]);
   threads = static_cast<int>(std::min<std::int64_t>(threads, widest));
+  if (threads == 1) {
+    auto polled = std::chrono::steady_clock::now();
+    for (std::size_t b = 0; b < batches; ++b) {
+      for (std::int64_t p = starts[b]; p < starts[b + 1]; ++p) node_fn(0, p);
+      after_batch(b);
+      ctl.done.fetch_add(starts[b + 1] - starts[b]);
+      if (!poll) continue;
+      const auto now = std::chrono::steady_clock::now();
+      if (now - polled < interval) continue;
+      polled = now;
+      if (!poll(ctl.done.load(), ctl.total)) {
+        ctl.cancel.store(true);
+        throw Cancelled();
+      }
+    }
+    if (poll) poll(ctl.done.load(), ctl.total);
+    return;
+  }
   std::atomic<std::int64_t> next{starts[0]};
   std::size_t batch = 0;
   bool stop = false;  // written only in the barrier completion, read by all after it

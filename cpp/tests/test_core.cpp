@@ -109,6 +109,26 @@ SL_TEST(pool_runs_batches_and_cancels) {
   run_batches(3, starts, [&](int, std::int64_t p) { hit[static_cast<std::size_t>(p)] += 1; },
               [&](std::size_t) { after += 1; }, ctl, Poll{});
   SL_CHECK(std::all_of(hit.begin(), hit.end(), [](int h) { return h == 1; }) && after == 3);
+  // One worker: the same work on the calling thread.
+  std::fill(hit.begin(), hit.end(), 0);
+  after = 0;
+  WorkControl one;
+  const auto caller = std::this_thread::get_id();
+  bool elsewhere = false;
+  run_batches(1, starts, [&](int w, std::int64_t p) { hit[static_cast<std::size_t>(p)] += 1 + w; elsewhere |= std::this_thread::get_id() != caller; },
+              [&](std::size_t) { after += 1; }, one, Poll{});
+  SL_CHECK(std::all_of(hit.begin(), hit.end(), [](int h) { return h == 1; }) && after == 3 && !elsewhere);
+  SL_CHECK(one.done.load() == 40);
+  // ... and a false poll between its batches cancels it.
+  std::vector<std::int64_t> many(201);
+  for (std::size_t b = 0; b < many.size(); ++b) many[b] = static_cast<std::int64_t>(b);
+  WorkControl one_cancelled;
+  int ran = 0;
+  SL_CHECK_THROWS(run_batches(1, many, [&](int, std::int64_t) { ++ran; std::this_thread::sleep_for(std::chrono::milliseconds(1)); },
+                              [](std::size_t) {}, one_cancelled, [](std::int64_t, std::int64_t) { return false; },
+                              std::chrono::milliseconds(5)),
+                  Cancelled);
+  SL_CHECK(ran < 200 && one_cancelled.cancelled());
   WorkControl ctl2;
   SL_CHECK_THROWS(run_supervised(2, [&](int, int) { while (!ctl2.cancelled()) std::this_thread::yield(); }, ctl2,
                                  [](std::int64_t, std::int64_t) { return false; }, std::chrono::milliseconds(5)),
