@@ -90,42 +90,46 @@ std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, con
     bucket_index[i] = static_cast<std::uint64_t>(f);
   }
   const std::int64_t window = 4 * max_batch;  // candidates looked at per batch
-  std::vector<Index> out;
-  out.reserve(path.size());
+  std::vector<Index> out(path.size());
+  std::size_t placed = 0;
   std::vector<std::int64_t> starts;
   // Nodes deferred by earlier batches (positions in `path`), in path order; path nodes not yet
-  // looked at start at `next` and are only taken once no deferred node is left.
-  std::vector<std::size_t> pending, deferred;
-  pending.reserve(static_cast<std::size_t>(window));
-  deferred.reserve(static_cast<std::size_t>(window));
+  // looked at start at `next` and are only taken once no deferred node is left. Both lists hold
+  // at most `window` nodes: raw stores, no growth checks.
+  std::vector<std::size_t> pending(static_cast<std::size_t>(window)), deferred(static_cast<std::size_t>(window));
+  std::size_t pending_count = 0;
   std::size_t next = 0;
   std::int64_t id = 0;
   std::int64_t* blocked_at = blocked.data();
   const std::uint64_t* bucket_of = bucket_index.data();
-  while (next < path.size() || !pending.empty()) {
-    starts.push_back(static_cast<std::int64_t>(out.size()));
+  const std::int64_t* around_at = around.data();
+  const std::size_t around_count = around.size();
+  const Index* path_at = path.data();
+  while (next < path.size() || pending_count > 0) {
+    starts.push_back(static_cast<std::int64_t>(placed));
     std::int64_t taken = 0, seen = 0;
-    deferred.clear();
+    std::size_t deferred_count = 0;
     auto consider = [&](std::size_t i) {
       const std::uint64_t b = bucket_of[i];
       if (blocked_at[b] != id) {
-        for (std::int64_t o : around) blocked_at[static_cast<std::int64_t>(b) + o] = id;
-        out.push_back(path[i]);
+        for (std::size_t o = 0; o < around_count; ++o) blocked_at[static_cast<std::int64_t>(b) + around_at[o]] = id;
+        out[placed++] = path_at[i];
         ++taken;
       } else {
-        deferred.push_back(i);
+        deferred[deferred_count++] = i;
       }
       ++seen;
     };
     std::size_t head = 0;
-    while (head < pending.size() && taken < max_batch && seen < window) consider(pending[head++]);
-    while (next < path.size() && head == pending.size() && taken < max_batch && seen < window) consider(next++);
+    while (head < pending_count && taken < max_batch && seen < window) consider(pending[head++]);
+    while (next < path.size() && head == pending_count && taken < max_batch && seen < window) consider(next++);
     // Deferred nodes come before the pending ones not looked at: both keep their path order.
-    deferred.insert(deferred.end(), pending.begin() + static_cast<std::ptrdiff_t>(head), pending.end());
+    for (; head < pending_count; ++head) deferred[deferred_count++] = pending[head];
     pending.swap(deferred);
+    pending_count = deferred_count;
     ++id;
   }
-  starts.push_back(static_cast<std::int64_t>(out.size()));
+  starts.push_back(static_cast<std::int64_t>(placed));
   path.swap(out);
   return starts;
 }
