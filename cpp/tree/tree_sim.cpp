@@ -197,20 +197,28 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
     // One stage per parity class at levels with a coarser one (see kStageOrder), else one stage.
     const bool staged = level < levels - 1;
     std::array<std::vector<Index>, 8> stage_cells;
-    for (Index cell : cells) stage_cells[staged ? static_cast<std::size_t>(parity_of_cell(cell)) : 0].push_back(cell);
+    if (staged) {
+      for (Index cell : cells) stage_cells[static_cast<std::size_t>(parity_of_cell(cell))].push_back(cell);
+    } else {
+      stage_cells[0].swap(cells);
+    }
     std::vector<Index> path;
     std::vector<std::int64_t> starts{0};
     std::fill(stage_query.begin(), stage_query.end(), StageQuery{});
     for (int p : kStageOrder) {
       std::vector<Index>& part = stage_cells[static_cast<std::size_t>(p)];
       if (part.empty()) continue;
-      std::sort(part.begin(), part.end());
+      if (!std::is_sorted(part.begin(), part.end())) std::sort(part.begin(), part.end());  // released cells came last
       shuffle_path(part, opt.seed, level);
       const auto part_starts =
           conflict_free_batches(grid, level, reach, part, std::min(opt.max_batch, batch_capacity(grid, level, reach)));
       const auto offset = static_cast<std::int64_t>(path.size());
       for (std::size_t b = 1; b < part_starts.size(); ++b) starts.push_back(offset + part_starts[b]);
-      path.insert(path.end(), part.begin(), part.end());
+      if (path.empty()) {
+        path.swap(part);
+      } else {
+        path.insert(path.end(), part.begin(), part.end());
+      }
       if (!staged) continue;
       // The class's cells query trees that take the nodes informed at its stage's start first.
       for (std::size_t t = 0; t < trees.size(); ++t) {
