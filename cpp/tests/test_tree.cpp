@@ -216,8 +216,10 @@ SL_TEST(bit_plane_kernels_agree) {
       for (unsigned k = gen() % 3; k > 0; --k) w &= gen();
       if (gen() % 5 == 0) w = 0;
     }
-    std::vector<const std::uint64_t*> plane(m);
-    for (std::size_t j = 0; j < m; ++j) plane[j] = all.data() + (j + 1) * words;
+    std::vector<std::int32_t> plane_index(m);
+    const std::vector<std::uint8_t> plane_value(m, 0);
+    for (std::size_t j = 0; j < m; ++j) plane_index[j] = static_cast<std::int32_t>(j + 1);
+    const planes::EventPlanes plane{all.data(), plane_index.data(), plane_value.data(), 1, words};
     std::size_t lo = gen() % words, hi = lo + 1 + gen() % (words - lo);
     all[lo] |= 1;  // the first and last word of the set are non-zero
     all[hi - 1] |= std::uint64_t{1} << 63;
@@ -249,8 +251,8 @@ SL_TEST(bit_plane_kernels_agree) {
     const std::vector<std::uint64_t> start(all.begin(), all.begin() + static_cast<std::ptrdiff_t>(words + planes::kPadWords));
     std::vector<std::uint64_t> a(words + planes::kPadWords), a2(a), b(a), b2(a);
     std::size_t lo_a = lo, hi_a = hi, lo_b = lo, hi_b = hi;
-    const auto x = fast.narrow(start.data(), a.data(), a2.data(), plane.data(), m, lo_a, hi_a, min_rep, ratio, pure);
-    const auto y = plain.narrow(start.data(), b.data(), b2.data(), plane.data(), m, lo_b, hi_b, min_rep, ratio, pure);
+    const auto x = fast.narrow(start.data(), a.data(), a2.data(), plane, m, lo_a, hi_a, min_rep, ratio, pure);
+    const auto y = plain.narrow(start.data(), b.data(), b2.data(), plane, m, lo_b, hi_b, min_rep, ratio, pure);
     SL_CHECK(std::equal(start.begin(), start.begin() + static_cast<std::ptrdiff_t>(words), all.begin()));
     const std::uint64_t* ra = x.set;
     const std::uint64_t* rb = y.set;

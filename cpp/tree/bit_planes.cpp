@@ -60,7 +60,7 @@ inline int first_category(const CategoryPlanes& c, const std::uint64_t* set, std
 #endif
 
 SL_PORTABLE_KERNEL Narrowed narrow_portable(const std::uint64_t* start, std::uint64_t* a_buf, std::uint64_t* b_buf,
-                                            const std::uint64_t* const* plane, std::size_t m, std::size_t& lo_ref,
+                                            const EventPlanes& plane, std::size_t m, std::size_t& lo_ref,
                                             std::size_t& hi_ref, std::int64_t min_replicates, std::size_t sparse_ratio,
                                             const CategoryPlanes* pure) {
   // Local copies: stores through the word pointers could otherwise alias these (and the compiler
@@ -130,7 +130,7 @@ SL_AVX512_KERNEL inline unsigned words_set(const std::uint64_t* words, std::size
 
 template <bool kPure>
 SL_AVX512_KERNEL Narrowed narrow_avx512_with(const std::uint64_t* start, std::uint64_t* a_buf, std::uint64_t* b_buf,
-                                             const std::uint64_t* const* plane, std::size_t m, std::size_t& lo_ref,
+                                             const EventPlanes& plane, std::size_t m, std::size_t& lo_ref,
                                              std::size_t& hi_ref, std::int64_t min_replicates, std::size_t sparse_ratio,
                                              const CategoryPlanes* pure) {
   // Local copies: stores through the word pointers could otherwise alias these.
@@ -229,7 +229,7 @@ SL_AVX512_KERNEL Narrowed narrow_avx512_with(const std::uint64_t* start, std::ui
 }
 
 SL_AVX512_KERNEL Narrowed narrow_avx512(const std::uint64_t* start, std::uint64_t* a_buf, std::uint64_t* b_buf,
-                                        const std::uint64_t* const* plane, std::size_t m, std::size_t& lo,
+                                        const EventPlanes& plane, std::size_t m, std::size_t& lo,
                                         std::size_t& hi, std::int64_t min_replicates, std::size_t sparse_ratio,
                                         const CategoryPlanes* pure) {
   return pure ? narrow_avx512_with<true>(start, a_buf, b_buf, plane, m, lo, hi, min_replicates, sparse_ratio, pure)

@@ -17,6 +17,22 @@ struct CategoryPlanes {
   std::size_t count = 0;  // K
 };
 
+// The planes of an event's informed nodes: plane j is the one of template position index[j]
+// holding code value[j], at base + (index[j] * codes + value[j]) * words. Computed as the
+// narrowing reaches it (it usually stops well before the last node).
+struct EventPlanes {
+  const std::uint64_t* base = nullptr;
+  const std::int32_t* index = nullptr;
+  const std::uint8_t* value = nullptr;
+  std::size_t codes = 0;  // K
+  std::size_t words = 0;
+  const std::uint64_t* operator[](std::size_t j) const {
+    return base + (static_cast<std::size_t>(index[j]) * codes + value[j]) * words;
+  }
+  // The planes from node j on.
+  EventPlanes from(std::size_t j) const { return {base, index + j, value + j, codes, words}; }
+};
+
 // A candidate set narrowed by informed nodes (see Kernels::narrow).
 struct Narrowed {
   std::size_t kept = 0;                  // planes ANDed in before the set would have too few centres
@@ -34,7 +50,7 @@ struct Kernels {
   const char* name;
   // Node dropping on bit planes. `start` holds the candidate set in its words [lo, hi) (the words
   // outside [lo, hi) may hold anything); it is only read. ANDs the set with plane[0],
-  // plane[1], ... (whole planes, read at [lo, hi)) while the result keeps at least
+  // plane[1], ..., plane[m - 1] (whole planes, read at [lo, hi)) while the result keeps at least
   // `min_replicates` centres (and at least one), narrowing [lo, hi) to the words still non-zero;
   // the results go to the buffers `a` and `b` in turn (each as long as a plane). Stops after a
   // plane (counted in kept) once the span is over 16 words and fewer than one word in
@@ -42,7 +58,7 @@ struct Kernels {
   // centre of the set holds one code (more planes cannot change the probabilities; `category` says
   // which). The set kept is `set`[lo, hi), its first and last word non-zero (`start` itself when no
   // plane was kept). `words` counts the words ANDed by the planes kept or tried.
-  Narrowed (*narrow)(const std::uint64_t* start, std::uint64_t* a, std::uint64_t* b, const std::uint64_t* const* plane,
+  Narrowed (*narrow)(const std::uint64_t* start, std::uint64_t* a, std::uint64_t* b, const EventPlanes& plane,
                      std::size_t m, std::size_t& lo, std::size_t& hi, std::int64_t min_replicates,
                      std::size_t sparse_ratio, const CategoryPlanes* pure);
   // Bits set in a[i] & b[i] over i < n.

@@ -468,9 +468,7 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
     sc.next_run.resize(words + planes::kPadWords);
     sc.third_run.resize(words + planes::kPadWords);
   }
-  sc.plane_at.resize(static_cast<std::size_t>(m));
-  for (int j = k; j < m; ++j)
-    sc.plane_at[static_cast<std::size_t>(j)] = planes + (static_cast<std::size_t>(index[j]) * K + value[j]) * words;
+  const planes::EventPlanes plane_of{planes, index, value, K, words};
   // The set to narrow: all centres when no informed node has been taken yet (the walk only
   // marginalised; then the first informed node's plane is the set after it, its extent and count
   // known), or the frontier's centres as a dense bit set over the words [lo, hi) they span.
@@ -480,7 +478,7 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
   if (k == 0) {
     const std::size_t p = static_cast<std::size_t>(index[k]) * K + value[k];
     if (L.plane_count[p] < std::max<std::int64_t>(min_replicates, 1)) return ans;
-    start = sc.plane_at[n];
+    start = plane_of[n];
     lo = L.plane_first[p];
     hi = L.plane_end[p];
     ans.visited += static_cast<std::int64_t>(N);
@@ -521,7 +519,7 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
   // once, for the set kept. Sets that keep few words over a wide span continue as a list of their
   // non-empty words.
   const planes::CategoryPlanes codes{category, words, K};
-  const planes::Narrowed nw = kern.narrow(start, sc.run.data(), sc.next_run.data(), sc.plane_at.data() + n,
+  const planes::Narrowed nw = kern.narrow(start, sc.run.data(), sc.next_run.data(), plane_of.from(n),
                                           static_cast<std::size_t>(m) - n, lo, hi, min_replicates, 16,
                                           stop_when_pure ? &codes : nullptr);
   ans.visited += 64 * static_cast<std::int64_t>(nw.words);  // centres, 64 at a time

@@ -63,7 +63,6 @@ struct QueryScratch {
   std::vector<std::uint32_t> word_index, next_index;  // candidate words of the bit planes
   std::vector<std::uint64_t> word_alive, next_alive;  // their centres still matching
   std::vector<std::uint64_t> run, next_run, third_run;  // dense bit sets, one word per 64 centres
-  std::vector<const std::uint64_t*> plane_at;         // the bit plane of each informed node
 };
 
 // Bytes that one or more trees may hold together (their trees, bit planes and ordered variants).
