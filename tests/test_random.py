@@ -63,6 +63,16 @@ def test_batches_are_conflict_free_and_cover_the_path():
     np.testing.assert_array_equal(starts, starts2)
 
 
+def test_a_max_batch_past_the_path_changes_nothing():
+    # Batches cannot hold more than the path; a huge cap must neither overflow nor hang.
+    g = sl.Grid((1, 20, 20))
+    path = sl.random_path(g, 0, seed=5)
+    order, starts = sl.conflict_free_batches(g, 0, (0, 2, 2), path, max_batch=len(path) + 1)
+    big_order, big_starts = sl.conflict_free_batches(g, 0, (0, 2, 2), path, max_batch=2**62)
+    np.testing.assert_array_equal(order, big_order)
+    np.testing.assert_array_equal(starts, big_starts)
+
+
 def test_bad_random_arguments():
     with pytest.raises(ValueError, match="seed"):
         sl.uniform_draws(-1, 0, [0])

@@ -94,14 +94,18 @@ std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, con
     for (int a = 0; a < 3; ++a) f = f * padded[a] + by_bucket[a].divide(c[a] >> level) + (padded[a] > 1 ? 1 : 0);
     bucket_index[i] = static_cast<std::uint64_t>(f);
   }
-  const std::int64_t window = 4 * max_batch;  // candidates looked at per batch
+  // Candidates looked at per batch. (A max_batch past the path's length changes nothing; capping
+  // it keeps the window from overflowing.)
+  max_batch = std::min<std::int64_t>(max_batch, static_cast<std::int64_t>(path.size()) + 1);
+  const std::int64_t window = 4 * max_batch;
   std::vector<Index> out(path.size());
   std::size_t placed = 0;
   std::vector<std::int64_t> starts;
   // Nodes deferred by earlier batches (positions in `path`), in path order; path nodes not yet
   // looked at start at `next` and are only taken once no deferred node is left. Both lists hold
-  // at most `window` nodes: raw stores, no growth checks.
-  std::vector<std::size_t> pending(static_cast<std::size_t>(window)), deferred(static_cast<std::size_t>(window));
+  // at most `window` nodes (and at most the path): raw stores, no growth checks.
+  const std::size_t list_size = std::min(static_cast<std::size_t>(window), path.size());
+  std::vector<std::size_t> pending(list_size), deferred(list_size);
   std::size_t pending_count = 0;
   std::size_t next = 0;
   std::int64_t id = 0;
