@@ -50,14 +50,21 @@ void shuffle_path(std::vector<Index>& cells, std::uint64_t seed, int level) {
     const std::uint64_t key = key_of(cell);
     sorted[fill[key >> (64 - bits)]++] = {key, cell};
   }
-  // Buckets hold about four cells: insertion sort.
-  for (std::size_t b = 0; b + 1 < start.size(); ++b)
+  // Buckets hold about four cells (up to 2**18 cells; more past that): insertion sort for small
+  // ones.
+  for (std::size_t b = 0; b + 1 < start.size(); ++b) {
+    if (start[b + 1] - start[b] > 16) {
+      std::sort(sorted.begin() + static_cast<std::ptrdiff_t>(start[b]),
+                sorted.begin() + static_cast<std::ptrdiff_t>(start[b + 1]), before);
+      continue;
+    }
     for (std::size_t i = start[b] + 1; i < start[b + 1]; ++i) {
       const Keyed x = sorted[i];
       std::size_t j = i;
       for (; j > start[b] && before(x, sorted[j - 1]); --j) sorted[j] = sorted[j - 1];
       sorted[j] = x;
     }
+  }
   for (std::size_t i = 0; i < n; ++i) cells[i] = sorted[i].cell;
 }
 

@@ -118,8 +118,13 @@ void run_batches(int threads, const std::vector<std::int64_t>& starts, NodeFn&& 
   threads = static_cast<int>(std::min<std::int64_t>(threads, widest));
   if (threads == 1) {
     auto polled = std::chrono::steady_clock::now();
-    for (std::size_t b = 0; b < batches; ++b) {
-      for (std::int64_t p = starts[b]; p < starts[b + 1]; ++p) node_fn(0, p);
+    for (std::size_t b = 0; b < batches && !ctl.cancelled(); ++b) {
+      try {
+        for (std::int64_t p = starts[b]; p < starts[b + 1]; ++p) node_fn(0, p);
+      } catch (...) {
+        ctl.cancel.store(true);  // as on the workers' path
+        throw;
+      }
       after_batch(b);
       ctl.done.fetch_add(starts[b + 1] - starts[b]);
       if (!poll) continue;
@@ -175,7 +180,7 @@ void run_batches(int threads, const std::vector<std::int64_t>& starts, NodeFn&& 
           if (stop) break;
         }
       },
-      ctl, poll);
+      ctl, poll, interval);
   if (node_error) std::rethrow_exception(node_error);
   if (after_error) std::rethrow_exception(after_error);
 }

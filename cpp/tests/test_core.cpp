@@ -137,10 +137,17 @@ SL_TEST(pool_runs_batches_and_cancels) {
 
 SL_TEST(pool_rethrows_worker_errors) {
   std::vector<std::int64_t> starts{0, 8, 16};
-  WorkControl ctl;
-  SL_CHECK_THROWS(run_batches(2, starts, [&](int, std::int64_t p) { if (p == 3) throw ParameterError("x", "bad"); },
-                              [](std::size_t) {}, ctl, Poll{}),
-                  ParameterError);
+  for (int threads : {1, 2}) {
+    WorkControl ctl;
+    SL_CHECK_THROWS(run_batches(threads, starts, [&](int, std::int64_t p) { if (p == 3) throw ParameterError("x", "bad"); },
+                                [](std::size_t) {}, ctl, Poll{}),
+                    ParameterError);
+    SL_CHECK(ctl.cancelled());
+    // A run cancelled before it starts runs no node, whatever the threads.
+    std::atomic<int> ran{0};
+    run_batches(threads, starts, [&](int, std::int64_t) { ++ran; }, [](std::size_t) {}, ctl, Poll{});
+    SL_CHECK(ran.load() == 0);
+  }
 }
 
 SL_TEST(divider_matches_division) {

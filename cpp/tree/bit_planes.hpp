@@ -56,8 +56,10 @@ struct Kernels {
   // plane (counted in kept) once the span is over 16 words and fewer than one word in
   // `sparse_ratio` of it is non-zero. With `pure` given, it also stops before a plane when every
   // centre of the set holds one code (more planes cannot change the probabilities; `category` says
-  // which). The set kept is `set`[lo, hi), its first and last word non-zero (`start` itself when no
-  // plane was kept). `words` counts the words ANDed by the planes kept or tried.
+  // which). The start set must hold a centre, its words at lo and hi - 1 non-zero (as every set
+  // kept is). The set kept is `set`[lo, hi), its first and last word non-zero (`start` itself when
+  // no plane was kept). `words` counts the words ANDed by the planes kept or tried; the AVX-512
+  // register passes count their whole span on every plane, so it differs between kernel sets.
   Narrowed (*narrow)(const std::uint64_t* start, std::uint64_t* a, std::uint64_t* b, const EventPlanes& plane,
                      std::size_t m, std::size_t& lo, std::size_t& hi, std::int64_t min_replicates,
                      std::size_t sparse_ratio, const CategoryPlanes* pure);

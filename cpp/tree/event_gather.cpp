@@ -112,6 +112,7 @@ __attribute__((target("avx512f"))) int EventGather::gather_vector(const std::int
   const __m512i iota = _mm512_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15);
   const __m512i zero = _mm512_setzero_si512();
   const __m512i sign = _mm512_set1_epi32(0x8000);
+  if (cap <= 0) return 0;
   const void* here = sim + cell;
   const std::size_t D = offsets_.size();
   int m = 0;
