@@ -286,12 +286,16 @@ SL_PORTABLE_KERNEL void count_categories(const std::uint32_t* word_index, const 
   }
 }
 
+bool portable_kernels_asked() {
+  const char* asked = std::getenv("STRATALOOM_KERNELS");
+  return asked != nullptr && std::string_view(asked) == "portable";
+}
+
 const Kernels& portable() { return kPortable; }
 
 const Kernels& best() {
   static const Kernels& chosen = [] () -> const Kernels& {
-    const char* asked = std::getenv("STRATALOOM_KERNELS");
-    if (asked != nullptr && std::string_view(asked) == "portable") return kPortable;
+    if (portable_kernels_asked()) return kPortable;
 #ifdef SL_HAVE_AVX512_PLANES
     if (has_avx512_popcount()) return kAvx512;
 #endif

@@ -78,6 +78,10 @@ std::size_t keep_matching(const std::uint32_t* word_index, const std::uint64_t* 
 void count_categories(const std::uint32_t* word_index, const std::uint64_t* word_alive, std::size_t n,
                       const std::uint64_t* category, std::size_t words, std::size_t K, std::int64_t* counts);
 
+// Whether the environment variable STRATALOOM_KERNELS is "portable" (read at each call): every
+// vector kernel of the tree engine then uses its plain loop.
+bool portable_kernels_asked();
+
 // The fastest kernels this processor runs, unless the environment variable STRATALOOM_KERNELS is
 // "portable" (for measuring and testing the plain loops on any machine).
 const Kernels& best();

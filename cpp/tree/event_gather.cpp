@@ -1,10 +1,10 @@
 #include "tree/event_gather.hpp"
 
+#include "tree/bit_planes.hpp"
+
 #include <algorithm>
 #include <bit>
-#include <cstdlib>
 #include <limits>
-#include <string_view>
 
 #if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__)) && !defined(STRATALOOM_NO_CLONES)
 #define SL_HAVE_AVX512_GATHER 1
@@ -17,8 +17,7 @@ namespace {
 
 bool vector_gathers_available() {
 #ifdef SL_HAVE_AVX512_GATHER
-  const char* asked = std::getenv("STRATALOOM_KERNELS");
-  if (asked != nullptr && std::string_view(asked) == "portable") return false;
+  if (planes::portable_kernels_asked()) return false;
   __builtin_cpu_init();
   return __builtin_cpu_supports("avx512f");
 #else
@@ -100,6 +99,7 @@ int EventGather::gather_plain(const std::int16_t* sim, Index cell, const Ijk& c,
 __attribute__((target("avx512f"))) int EventGather::gather_vector(const std::int16_t* sim, Index cell, const Ijk& c,
                                                                   int cap, std::int32_t* index,
                                                                   std::uint8_t* value) const {
+  if (cap <= 0) return 0;
   // Sixteen template nodes at a time: which lie inside the grid (unsigned compares per axis), a
   // gather of their codes, and the informed ones packed in order.
   const __m512i cz = _mm512_set1_epi32(static_cast<std::int32_t>(c[0]));
@@ -112,7 +112,6 @@ __attribute__((target("avx512f"))) int EventGather::gather_vector(const std::int
   const __m512i iota = _mm512_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15);
   const __m512i zero = _mm512_setzero_si512();
   const __m512i sign = _mm512_set1_epi32(0x8000);
-  if (cap <= 0) return 0;
   const void* here = sim + cell;
   const std::size_t D = offsets_.size();
   int m = 0;

@@ -1,6 +1,7 @@
 // The data event of a node: which template nodes around it are informed, and their codes. Read
-// once per simulated node, so it has a vector version (AVX-512 gathers, chosen once per process
-// where the processor has them) beside the plain loop; both give the same events.
+// once per simulated node, so it has a vector version (AVX-512 gathers, chosen at construction
+// where the processor has them and STRATALOOM_KERNELS is not "portable") beside the plain loop;
+// both give the same events.
 #pragma once
 
 #include <cstdint>
@@ -26,8 +27,6 @@ class EventGather {
   // offsets.size() + kPad entries.
   int gather(const std::int16_t* sim, Index cell, const Ijk& c, int cap, std::int32_t* index,
              std::uint8_t* value) const;
-
-  std::size_t size() const noexcept { return offsets_.size(); }
 
  private:
   int gather_plain(const std::int16_t* sim, Index cell, const Ijk& c, int cap, std::int32_t* index,

@@ -540,7 +540,7 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
     sc.next_alive.resize(sc.word_alive.size());
     int passes = 0;
     for (; n < static_cast<std::size_t>(m); ++n) {
-      const std::uint64_t* plane = planes + (static_cast<std::size_t>(index[n]) * K + value[n]) * words;
+      const std::uint64_t* plane = plane_of[n];
       std::int64_t total = 0;
       const std::size_t out = planes::keep_matching(sc.word_index.data(), sc.word_alive.data(), sc.word_index.size(),
                                                     plane, sc.next_index.data(), sc.next_alive.data(), total);
