@@ -247,6 +247,33 @@ SL_TEST(bit_plane_kernels_agree) {
           }
       return found;
     };
+    auto first_code = [&](const std::vector<std::uint64_t>& set) {  // the code of the set's first centre
+      for (std::size_t w = 0; w < words; ++w)
+        if (set[w] != 0)
+          for (std::size_t q = 0; q < K; ++q)
+            if (codes[q * words + w] & (set[w] & (~set[w] + 1))) return static_cast<int>(q);
+      return -1;
+    };
+    auto only_code = [&](const std::vector<std::uint64_t>& set, int q) {  // every centre of the set holds q
+      for (std::size_t w = 0; w < words; ++w)
+        if (set[w] & ~codes[static_cast<std::size_t>(q) * words + w]) return false;
+      return true;
+    };
+    auto after_planes = [&](std::size_t t) {  // the start set ANDed with the first t planes
+      std::vector<std::uint64_t> set(words, 0);
+      for (std::size_t w = lo; w < hi; ++w) {
+        set[w] = all[w];
+        for (std::size_t j = 0; j < t; ++j) set[w] &= plane[j][w];
+      }
+      return set;
+    };
+    // Whether the kernels, checking codes per group, would have stopped at the set after t planes:
+    // at a group's start on any one code, inside a group on the code of the group's first centre.
+    auto stops_at = [&](std::size_t t) {
+      const std::vector<std::uint64_t> set = after_planes(t);
+      if (t % planes::kGroupPlanes == 0) return code_of_set(set) >= 0;
+      return only_code(set, first_code(after_planes(t - t % planes::kGroupPlanes)));
+    };
     // The start set is only read: the kernels write to the two buffers.
     const std::vector<std::uint64_t> start(all.begin(), all.begin() + static_cast<std::ptrdiff_t>(words + planes::kPadWords));
     std::vector<std::uint64_t> a(words + planes::kPadWords), a2(a), b(a), b2(a);
@@ -256,36 +283,29 @@ SL_TEST(bit_plane_kernels_agree) {
     SL_CHECK(std::equal(start.begin(), start.begin() + static_cast<std::ptrdiff_t>(words), all.begin()));
     const std::uint64_t* ra = x.set;
     const std::uint64_t* rb = y.set;
-    SL_CHECK((x.kept == 0) == (ra == start.data()));
-    SL_CHECK(x.kept == y.kept && x.sparse == y.sparse && x.category == y.category && lo_a == lo_b && hi_a == hi_b);
+    SL_CHECK(x.kept == y.kept && x.sparse == y.sparse && x.category == y.category && x.count == y.count);
     SL_CHECK(pure != nullptr || x.category == -1);
-    SL_CHECK(std::equal(ra + lo_a, ra + hi_a, rb + lo_b));
-    SL_CHECK(ra[lo_a] != 0 && ra[hi_a - 1] != 0);
     // Exactness against a word-by-word reference: the set kept is the AND of the first `kept`
     // planes, and one more plane would leave fewer than min_rep centres (unless it stopped early).
+    const std::vector<std::uint64_t> kept_set = after_planes(x.kept);
     std::int64_t total = 0;
-    std::vector<std::uint64_t> kept_set(words, 0);
-    for (std::size_t w = lo; w < hi; ++w) {
-      std::uint64_t v = all[w];
-      for (std::size_t j = 0; j < x.kept; ++j) v &= plane[j][w];
-      SL_CHECK((w >= lo_a && w < hi_a) ? v == ra[w] : v == 0);
-      total += std::popcount(v);
-      kept_set[w] = v;
-    }
+    for (std::uint64_t v : kept_set) total += std::popcount(v);
     SL_CHECK(x.kept == 0 || total >= min_rep);
-    // Stopping on one code: at the first set that holds one code, and only there.
-    if (x.category >= 0) SL_CHECK(code_of_set(kept_set) == x.category);
-    if (pure && x.category < 0 && !x.sparse && x.kept < m) SL_CHECK(code_of_set(kept_set) == -1);
+    if (x.category >= 0) {
+      // Stopped on one code: no set or bounds given, the count is the set's.
+      SL_CHECK(x.set == nullptr && y.set == nullptr && lo_a == lo && hi_a == hi && lo_b == lo && hi_b == hi);
+      SL_CHECK(code_of_set(kept_set) == x.category && x.count == total && stops_at(x.kept));
+    } else {
+      SL_CHECK((x.kept == 0) == (ra == start.data()));
+      SL_CHECK(lo_a == lo_b && hi_a == hi_b && std::equal(ra + lo_a, ra + hi_a, rb + lo_b));
+      SL_CHECK(ra[lo_a] != 0 && ra[hi_a - 1] != 0);
+      for (std::size_t w = lo; w < hi; ++w) SL_CHECK((w >= lo_a && w < hi_a) ? kept_set[w] == ra[w] : kept_set[w] == 0);
+      if (pure && !x.sparse && x.kept < m) SL_CHECK(!stops_at(x.kept));
+    }
     stopped_pure += x.category >= 0;
+    // It stops at the first set it can tell holds one code, and only there.
     if (pure)
-      for (std::size_t t = 0; t < x.kept; ++t) {
-        std::vector<std::uint64_t> earlier(words, 0);
-        for (std::size_t w = lo; w < hi; ++w) {
-          earlier[w] = all[w];
-          for (std::size_t j = 0; j < t; ++j) earlier[w] &= plane[j][w];
-        }
-        SL_CHECK(code_of_set(earlier) == -1);
-      }
+      for (std::size_t t = 0; t < x.kept; ++t) SL_CHECK(!stops_at(t));
     if (!x.sparse && x.category < 0 && x.kept < m) {
       std::int64_t after = 0;
       for (std::size_t w = lo; w < hi; ++w) {

@@ -1,5 +1,6 @@
 #include "tree/bit_planes.hpp"
 
+#include <algorithm>
 #include <bit>
 #include <cstdlib>
 #include <string_view>
@@ -14,17 +15,10 @@ namespace sl::planes {
 
 namespace {
 
-// After a pass that wrote the set after plane j to `dst` (non-zero words first..last, `nonzero` of
-// them): makes it the current set and narrows [lo, hi) to it. True when the set has become sparse
-// (few non-empty words over a wide span): the caller stops there.
-inline bool keep_pass(Narrowed& out, const std::uint64_t*& cur, std::uint64_t*& dst, std::uint64_t*& other,
-                      std::size_t& lo, std::size_t& hi, std::size_t j, std::size_t first, std::size_t last,
-                      std::size_t nonzero, std::size_t sparse_ratio) {
-  cur = dst;
-  std::swap(dst, other);
-  lo = first;
-  hi = last + 1;
-  out.kept = j + 1;
+// After a group of planes, all kept (the set spans [lo, hi), `nonzero` of its words non-zero):
+// whether the set has become sparse (few non-empty words over a wide span), where the caller
+// goes on with a list of its words.
+inline bool is_sparse(Narrowed& out, std::size_t lo, std::size_t hi, std::size_t nonzero, std::size_t sparse_ratio) {
   out.sparse = hi - lo > 16 && nonzero * sparse_ratio < hi - lo;
   return out.sparse;
 }
@@ -66,39 +60,61 @@ SL_PORTABLE_KERNEL Narrowed narrow_portable(const std::uint64_t* start, std::uin
   // Local copies: stores through the word pointers could otherwise alias these (and the compiler
   // would not vectorise the loops).
   std::size_t lo = lo_ref, hi = hi_ref;
+  const std::int64_t need = std::max<std::int64_t>(min_replicates, 1);
   Narrowed out;
   const std::uint64_t* cur = start;
   std::uint64_t* dst = a_buf;  // never `cur`
   std::uint64_t* other = b_buf;
-  for (std::size_t j = 0; j < m; ++j) {
+  for (std::size_t j = 0; j < m;) {
+    const std::size_t group_end = std::min(m, j + kGroupPlanes);
+    const std::uint64_t* c = nullptr;  // the plane of the code of the group's first centre
+    int q = -1;
     if (pure) {
-      const int q = first_category(*pure, cur, lo);
-      const std::uint64_t* c = pure->planes + static_cast<std::size_t>(q) * pure->words;
+      q = first_category(*pure, cur, lo);
+      c = pure->planes + static_cast<std::size_t>(q) * pure->words;
       std::uint64_t other_codes = 0;
-      for (std::size_t i = lo; i < hi; ++i) other_codes |= cur[i] & ~c[i];
+      std::int64_t total = 0;
+      for (std::size_t i = lo; i < hi; ++i) {
+        other_codes |= cur[i] & ~c[i];
+        total += std::popcount(cur[i]);
+      }
       if (other_codes == 0) {
         out.category = q;
-        break;
+        out.count = total;
+        return out;
       }
     }
-    const std::uint64_t* p = plane[j];
-    out.words += hi - lo;
     std::size_t nonzero = 0;
-    for (std::size_t i = lo; i < hi; ++i) {
-      const std::uint64_t a = cur[i] & p[i];
-      dst[i] = a;
-      nonzero += a != 0;
-    }
-    if (nonzero == 0) break;
-    std::size_t first = lo, last = hi - 1;
-    while (dst[first] == 0) ++first;
-    while (dst[last] == 0) --last;
-    if (min_replicates > 1) {
+    for (; j < group_end; ++j) {
+      const std::uint64_t* p = plane[j];
+      out.words += hi - lo;
+      nonzero = 0;
       std::int64_t total = 0;
-      for (std::size_t i = first; i <= last; ++i) total += std::popcount(dst[i]);
-      if (total < min_replicates) break;
+      std::uint64_t other_codes = 0;
+      for (std::size_t i = lo; i < hi; ++i) {
+        const std::uint64_t a = cur[i] & p[i];
+        dst[i] = a;
+        nonzero += a != 0;
+        total += std::popcount(a);
+        if (c) other_codes |= a & ~c[i];
+      }
+      if (total < need) return finish(out, cur, lo, hi, lo_ref, hi_ref);
+      if (c && other_codes == 0) {
+        out.kept = j + 1;
+        out.category = q;
+        out.count = total;
+        return out;
+      }
+      std::size_t first = lo, last = hi - 1;
+      while (dst[first] == 0) ++first;
+      while (dst[last] == 0) --last;
+      cur = dst;
+      std::swap(dst, other);
+      lo = first;
+      hi = last + 1;
+      out.kept = j + 1;
     }
-    if (keep_pass(out, cur, dst, other, lo, hi, j, first, last, nonzero, sparse_ratio)) break;
+    if (is_sparse(out, lo, hi, nonzero, sparse_ratio)) break;
   }
   return finish(out, cur, lo, hi, lo_ref, hi_ref);
 }
@@ -122,10 +138,113 @@ SL_AVX512_KERNEL inline std::int64_t sum_lanes(__m512i v) {
   return lane[0] + lane[1] + lane[2] + lane[3] + lane[4] + lane[5] + lane[6] + lane[7];
 }
 
+SL_AVX512_KERNEL inline bool all_zero(__m512i v) { return _mm512_test_epi64_mask(v, v) == 0; }
+
+// (acc | (s & ~c)) per bit: acc collects the centres of s outside the code plane c.
+SL_AVX512_KERNEL inline __m512i add_outside(__m512i acc, __m512i s, __m512i c) {
+  return _mm512_ternarylogic_epi64(acc, s, c, 0xF4);
+}
+
 // Which of the (up to) eight words from `at` (below `end`) are non-zero, as bits.
 SL_AVX512_KERNEL inline unsigned words_set(const std::uint64_t* words, std::size_t at, std::size_t end) {
   const __m512i a = _mm512_loadu_si512(words + at);
   return static_cast<unsigned>(_mm512_mask_test_epi64_mask(lanes_left(end - at), a, a));
+}
+
+// Narrows [lo, hi) to the non-zero words of a set written over whole vectors from lo (zero past
+// hi); the set holds a centre.
+SL_AVX512_KERNEL inline void trim(const std::uint64_t* set, std::size_t& lo, std::size_t& hi) {
+  std::size_t i = lo;
+  unsigned bits = words_set(set, i, hi);
+  while (bits == 0) bits = words_set(set, i += 8, hi);
+  const std::size_t first = i + static_cast<std::size_t>(std::countr_zero(bits));
+  i = lo + (hi - 1 - lo) / 8 * 8;
+  bits = words_set(set, i, hi);
+  while (bits == 0) bits = words_set(set, i -= 8, hi);
+  hi = i + 32 - static_cast<std::size_t>(std::countl_zero(bits));
+  lo = first;
+}
+
+// The set `cur`[lo, hi) ANDed with the first g planes of `pp`, written to `dst` (whole vectors).
+SL_AVX512_KERNEL inline void and_planes(const std::uint64_t* cur, const std::uint64_t* const* pp, std::size_t g,
+                                        std::uint64_t* dst, std::size_t lo, std::size_t hi) {
+  for (std::size_t i = lo; i < hi; i += 8) {
+    __m512i x = _mm512_maskz_mov_epi64(lanes_left(hi - i), _mm512_loadu_si512(cur + i));
+    for (std::size_t t = 0; t < g; ++t) x = _mm512_and_si512(x, _mm512_loadu_si512(pp[t] + i));
+    _mm512_storeu_si512(dst + i, x);
+  }
+}
+
+// Centres in `set`[lo, hi).
+SL_AVX512_KERNEL inline std::int64_t count_set(const std::uint64_t* set, std::size_t lo, std::size_t hi) {
+  __m512i acc = _mm512_setzero_si512();
+  for (std::size_t i = lo; i < hi; i += 8)
+    acc = _mm512_add_epi64(acc, _mm512_popcnt_epi64(_mm512_maskz_mov_epi64(lanes_left(hi - i), _mm512_loadu_si512(set + i))));
+  return sum_lanes(acc);
+}
+
+// The register path of narrow_avx512_with: a set of at most two vectors (hi - lo <= 16) stays in
+// registers for the remaining planes (no stores and no trimming between planes).
+template <bool kPure>
+SL_AVX512_KERNEL Narrowed narrow_in_registers(Narrowed out, const std::uint64_t* cur, std::uint64_t* dst,
+                                              const EventPlanes& plane, std::size_t j, std::size_t m,
+                                              std::size_t lo, std::size_t hi, std::size_t& lo_ref,
+                                              std::size_t& hi_ref, std::int64_t need, const CategoryPlanes* pure) {
+  const __mmask8 lanes0 = lanes_left(hi - lo), lanes1 = hi - lo > 8 ? lanes_left(hi - lo - 8) : 0;
+  __m512i a0 = _mm512_maskz_mov_epi64(lanes0, _mm512_loadu_si512(cur + lo));
+  __m512i a1 = _mm512_maskz_mov_epi64(lanes1, _mm512_loadu_si512(cur + lo + 8));
+  const std::size_t kept_before = out.kept;
+  while (j < m) {
+    const std::size_t group_end = std::min(m, j + kGroupPlanes);
+    __m512i c0 = _mm512_setzero_si512(), c1 = c0;
+    int q = -1;
+    if constexpr (kPure) {
+      const unsigned set = _mm512_test_epi64_mask(a0, a0) | static_cast<unsigned>(_mm512_test_epi64_mask(a1, a1)) << 8;
+      const unsigned w = static_cast<unsigned>(std::countr_zero(set));  // the set is never empty here
+      alignas(64) std::uint64_t lanes[16];
+      _mm512_store_si512(lanes, a0);
+      _mm512_store_si512(lanes + 8, a1);
+      q = category_of(*pure, lo + w, static_cast<unsigned>(std::countr_zero(lanes[w])));
+      const std::uint64_t* c = pure->planes + static_cast<std::size_t>(q) * pure->words + lo;
+      c0 = _mm512_loadu_si512(c);
+      c1 = _mm512_loadu_si512(c + 8);
+      if (all_zero(_mm512_or_si512(_mm512_maskz_andnot_epi64(0xFF, c0, a0), _mm512_maskz_andnot_epi64(0xFF, c1, a1)))) {
+        out.category = q;
+        out.count = sum_lanes(_mm512_add_epi64(_mm512_popcnt_epi64(a0), _mm512_popcnt_epi64(a1)));
+        return out;
+      }
+    }
+    bool dropped = false;
+    for (; j < group_end; ++j) {
+      out.words += hi - lo;
+      const __m512i b0 = _mm512_and_si512(a0, _mm512_loadu_si512(plane[j] + lo));
+      const __m512i b1 = _mm512_and_si512(a1, _mm512_loadu_si512(plane[j] + lo + 8));
+      if (need > 1) {
+        if (sum_lanes(_mm512_add_epi64(_mm512_popcnt_epi64(b0), _mm512_popcnt_epi64(b1))) < need) dropped = true;
+      } else if (all_zero(_mm512_or_si512(b0, b1))) {
+        dropped = true;
+      }
+      if (dropped) break;
+      out.kept = j + 1;
+      if constexpr (kPure) {
+        if (all_zero(_mm512_or_si512(_mm512_maskz_andnot_epi64(0xFF, c0, b0), _mm512_maskz_andnot_epi64(0xFF, c1, b1)))) {
+          out.category = q;
+          out.count = sum_lanes(_mm512_add_epi64(_mm512_popcnt_epi64(b0), _mm512_popcnt_epi64(b1)));
+          return out;
+        }
+      }
+      a0 = b0;
+      a1 = b1;
+    }
+    if (dropped) break;
+  }
+  if (out.kept == kept_before) return finish(out, cur, lo, hi, lo_ref, hi_ref);  // nothing added: in place
+  _mm512_storeu_si512(dst + lo, a0);
+  _mm512_storeu_si512(dst + lo + 8, a1);
+  const unsigned set = _mm512_test_epi64_mask(a0, a0) | static_cast<unsigned>(_mm512_test_epi64_mask(a1, a1)) << 8;
+  const std::size_t first = lo + static_cast<std::size_t>(std::countr_zero(set));  // set != 0: a plane was kept
+  const std::size_t end = lo + 16 - static_cast<std::size_t>(std::countl_zero(set << 16));
+  return finish(out, dst, first, end, lo_ref, hi_ref);
 }
 
 template <bool kPure>
@@ -135,95 +254,69 @@ SL_AVX512_KERNEL Narrowed narrow_avx512_with(const std::uint64_t* start, std::ui
                                              const CategoryPlanes* pure) {
   // Local copies: stores through the word pointers could otherwise alias these.
   const std::uint64_t* cur = start;
-  std::uint64_t* dst = a_buf;    // where the next pass writes: never `cur`
+  std::uint64_t* dst = a_buf;  // where the next group writes: never `cur`
   std::uint64_t* other = b_buf;
   std::size_t lo = lo_ref, hi = hi_ref;
+  const std::int64_t need = std::max<std::int64_t>(min_replicates, 1);
   Narrowed out;
-  for (std::size_t j = 0; j < m; ++j) {
-    if (hi - lo <= 16) {
-      // Two vectors or less: keep them in registers for the remaining planes (no stores, no
-      // trimming between planes; a pass costs a few instructions).
-      const __mmask8 lanes0 = lanes_left(hi - lo), lanes1 = hi - lo > 8 ? lanes_left(hi - lo - 8) : 0;
-      __m512i a0 = _mm512_maskz_mov_epi64(lanes0, _mm512_loadu_si512(cur + lo));
-      __m512i a1 = _mm512_maskz_mov_epi64(lanes1, _mm512_loadu_si512(cur + lo + 8));
-      const std::size_t kept_before = out.kept;
-      for (; j < m; ++j) {
-        if constexpr (kPure) {
-          const unsigned set = _mm512_test_epi64_mask(a0, a0) | static_cast<unsigned>(_mm512_test_epi64_mask(a1, a1)) << 8;
-          const unsigned w = static_cast<unsigned>(std::countr_zero(set));  // the set is never empty here
-          alignas(64) std::uint64_t lanes[16];
-          _mm512_store_si512(lanes, a0);
-          _mm512_store_si512(lanes + 8, a1);
-          const std::uint64_t word = lanes[w];
-          const int q = category_of(*pure, lo + w, static_cast<unsigned>(std::countr_zero(word)));
-          const std::uint64_t* c = pure->planes + static_cast<std::size_t>(q) * pure->words + lo;
-          const __m512i rest = _mm512_or_si512(_mm512_maskz_andnot_epi64(0xFF, _mm512_loadu_si512(c), a0),
-                                               _mm512_maskz_andnot_epi64(0xFF, _mm512_loadu_si512(c + 8), a1));
-          if (_mm512_test_epi64_mask(rest, rest) == 0) {
-            out.category = q;
-            break;
-          }
-        }
-        out.words += hi - lo;
-        const __m512i b0 = _mm512_and_si512(a0, _mm512_loadu_si512(plane[j] + lo));
-        const __m512i b1 = _mm512_and_si512(a1, _mm512_loadu_si512(plane[j] + lo + 8));
-        if (min_replicates > 1) {
-          if (sum_lanes(_mm512_add_epi64(_mm512_popcnt_epi64(b0), _mm512_popcnt_epi64(b1))) < min_replicates) break;
-        } else if (_mm512_test_epi64_mask(_mm512_or_si512(b0, b1), _mm512_or_si512(b0, b1)) == 0) {
-          break;
-        }
-        a0 = b0;
-        a1 = b1;
-        out.kept = j + 1;
-      }
-      if (out.kept == kept_before) break;  // nothing added: the set stays where it is (and is in place)
-      _mm512_storeu_si512(dst + lo, a0);
-      _mm512_storeu_si512(dst + lo + 8, a1);
-      cur = dst;
-      const unsigned set = _mm512_test_epi64_mask(a0, a0) | static_cast<unsigned>(_mm512_test_epi64_mask(a1, a1)) << 8;
-      hi = lo + 16 - static_cast<std::size_t>(std::countl_zero(set << 16));  // set != 0: a plane was kept
-      lo += static_cast<std::size_t>(std::countr_zero(set));
-      break;
-    }
-    const std::uint64_t* p = plane[j];
-    // No data-dependent branch inside a pass: which words survive varies from call to call. The
-    // first and last non-zero vectors are kept with conditional moves, then refined to words.
-    std::size_t nonzero = 0;
-    std::size_t f = hi, l = hi;
-    // With `pure`, the same pass checks whether the set it starts from holds only the code of its
-    // first centre (lanes holding centres outside that code's plane: `impure`).
+  for (std::size_t j = 0; j < m;) {
+    if (hi - lo <= 16) return narrow_in_registers<kPure>(out, cur, dst, plane, j, m, lo, hi, lo_ref, hi_ref, need, pure);
+    // One sweep ANDs the whole group: per plane g of it, the centres left (pop[g]) and, with
+    // `pure`, those outside the code q of the group's first centre (outside[g]; outside_start for
+    // the set the group starts from). No data-dependent branch inside the sweep: which words
+    // survive varies from call to call. A group past the last plane repeats the last one.
+    const std::size_t G = std::min(m - j, kGroupPlanes);
+    const std::uint64_t* pp[kGroupPlanes];
+    for (std::size_t g = 0; g < kGroupPlanes; ++g) pp[g] = plane[j + std::min(g, G - 1)];
     const int q = kPure ? first_category(*pure, cur, lo) : 0;
-    const std::uint64_t* c = kPure ? pure->planes + static_cast<std::size_t>(q) * pure->words : p;
-    unsigned impure = 0;
+    const std::uint64_t* c = kPure ? pure->planes + static_cast<std::size_t>(q) * pure->words : cur;
+    __m512i pop[kGroupPlanes], outside[kGroupPlanes];
+    for (std::size_t g = 0; g < kGroupPlanes; ++g) pop[g] = outside[g] = _mm512_setzero_si512();
+    __m512i outside_start = _mm512_setzero_si512(), nonzero_words = outside_start;
+    const __m512i one = _mm512_set1_epi64(1);
     for (std::size_t i = lo; i < hi; i += 8) {
-      // Whole vectors (the arrays have room past hi): masked stores would stall the loads of the
-      // next pass, which read them back. Lanes past hi are left out of the counts.
-      const __mmask8 lanes = lanes_left(hi - i);
-      const __m512i s = _mm512_loadu_si512(cur + i);
-      const __m512i a = _mm512_and_si512(s, _mm512_loadu_si512(p + i));
-      _mm512_storeu_si512(dst + i, a);
-      const unsigned set = _mm512_mask_test_epi64_mask(lanes, a, a);
-      if constexpr (kPure)
-        impure |= _mm512_mask_test_epi64_mask(lanes, s, _mm512_maskz_andnot_epi64(0xFF, _mm512_loadu_si512(c + i), s));
-      nonzero += static_cast<std::size_t>(std::popcount(set));
-      f = (f == hi && set != 0) ? i : f;
-      l = set != 0 ? i : l;
+      // Whole vectors (the arrays have room past hi, zero there): masked stores would stall the
+      // loads of the next group, which reads them back.
+      __m512i x = _mm512_maskz_mov_epi64(lanes_left(hi - i), _mm512_loadu_si512(cur + i));
+      __m512i ci = _mm512_setzero_si512();
+      if constexpr (kPure) {
+        ci = _mm512_loadu_si512(c + i);
+        outside_start = add_outside(outside_start, x, ci);
+      }
+      for (std::size_t g = 0; g < kGroupPlanes; ++g) {
+        x = _mm512_and_si512(x, _mm512_loadu_si512(pp[g] + i));
+        pop[g] = _mm512_add_epi64(pop[g], _mm512_popcnt_epi64(x));
+        if constexpr (kPure) outside[g] = add_outside(outside[g], x, ci);
+      }
+      _mm512_storeu_si512(dst + i, x);
+      nonzero_words = _mm512_mask_add_epi64(nonzero_words, _mm512_test_epi64_mask(x, x), nonzero_words, one);
     }
-    if (kPure && impure == 0) {
+    if (kPure && all_zero(outside_start)) {
       out.category = q;
-      break;
+      out.count = count_set(cur, lo, hi);
+      return out;
     }
-    out.words += hi - lo;
-    if (nonzero == 0) break;
-    const std::size_t first = f + static_cast<std::size_t>(std::countr_zero(words_set(dst, f, hi)));
-    const std::size_t last = l + 31 - static_cast<std::size_t>(std::countl_zero(words_set(dst, l, hi)));
-    if (min_replicates > 1) {
-      __m512i acc = _mm512_setzero_si512();
-      for (std::size_t i = first; i <= last; i += 8)
-        acc = _mm512_add_epi64(acc, _mm512_popcnt_epi64(_mm512_maskz_mov_epi64(lanes_left(last + 1 - i), _mm512_loadu_si512(dst + i))));
-      if (sum_lanes(acc) < min_replicates) break;
+    for (std::size_t g = 0; g < G; ++g) {
+      out.words += hi - lo;
+      const std::int64_t left = sum_lanes(pop[g]);
+      if (left < need) {
+        if (g == 0) return finish(out, cur, lo, hi, lo_ref, hi_ref);
+        and_planes(cur, pp, g, dst, lo, hi);
+        trim(dst, lo, hi);
+        return finish(out, dst, lo, hi, lo_ref, hi_ref);
+      }
+      out.kept = j + g + 1;
+      if (kPure && all_zero(outside[g])) {
+        out.category = q;
+        out.count = left;
+        return out;
+      }
     }
-    if (keep_pass(out, cur, dst, other, lo, hi, j, first, last, nonzero, sparse_ratio)) break;
+    trim(dst, lo, hi);
+    cur = dst;
+    std::swap(dst, other);
+    j += G;
+    if (is_sparse(out, lo, hi, static_cast<std::size_t>(sum_lanes(nonzero_words)), sparse_ratio)) break;
   }
   return finish(out, cur, lo, hi, lo_ref, hi_ref);
 }

@@ -38,12 +38,18 @@ struct Narrowed {
   std::size_t kept = 0;                  // planes ANDed in before the set would have too few centres
   bool sparse = false;                   // stopped early: few non-empty words over a wide span
   int category = -1;                     // stopped early: every centre of the set holds this code
-  const std::uint64_t* set = nullptr;    // the words of the set kept (the start set or a buffer)
+  std::int64_t count = -1;               // with `category`: the centres of the set kept
+  const std::uint64_t* set = nullptr;    // the words of the set kept (the start set or a buffer);
+                                         // nullptr with `category` (its count is all that is needed)
   std::size_t words = 0;                 // words ANDed, over all planes
 };
 
+// Planes are taken in groups of this many: one sweep over the set ANDs a whole group.
+inline constexpr std::size_t kGroupPlanes = 4;
+
 // Words every array handed to the kernels must have past the last one it is read at: the
-// kernels read and write whole vectors of eight words, two at a time.
+// kernels read and write whole vectors of eight words, two at a time, from the vector holding
+// the first word of the set.
 inline constexpr std::size_t kPadWords = 16;
 
 struct Kernels {
@@ -52,14 +58,18 @@ struct Kernels {
   // outside [lo, hi) may hold anything); it is only read. ANDs the set with plane[0],
   // plane[1], ..., plane[m - 1] (whole planes, read at [lo, hi)) while the result keeps at least
   // `min_replicates` centres (and at least one), narrowing [lo, hi) to the words still non-zero;
-  // the results go to the buffers `a` and `b` in turn (each as long as a plane). Stops after a
-  // plane (counted in kept) once the span is over 16 words and fewer than one word in
-  // `sparse_ratio` of it is non-zero. With `pure` given, it also stops before a plane when every
-  // centre of the set holds one code (more planes cannot change the probabilities; `category` says
-  // which). The start set must hold a centre, its words at lo and hi - 1 non-zero (as every set
-  // kept is). The set kept is `set`[lo, hi), its first and last word non-zero (`start` itself when
-  // no plane was kept). `words` counts the words ANDed by the planes kept or tried; the AVX-512
-  // register passes count their whole span on every plane, so it differs between kernel sets.
+  // the results go to the buffers `a` and `b` (each as long as a plane). The planes come in
+  // groups of kGroupPlanes from plane[0]; after a group it stops (the group counted in kept) once
+  // the span is over 16 words and fewer than one word in `sparse_ratio` of it is non-zero.
+  // With `pure` given, it also stops once every centre of the set holds one code (more planes
+  // cannot change the probabilities): before a group, when the set holds only the code q of its
+  // first centre, or after the first plane of the group that leaves only q. A set left with
+  // another code is noticed at the next group, so kept may pass the first set with one code by
+  // up to three planes. It then gives `category` (the code) and `count` (the centres of the set
+  // kept); `set` is nullptr and lo, hi are left as they were. The start set must hold a centre,
+  // its words at lo and hi - 1 non-zero (as every set kept is). Otherwise the set kept is
+  // `set`[lo, hi), its first and last word non-zero (`start` itself when no plane was kept).
+  // `words` counts the words ANDed by the planes kept or tried; it differs between kernel sets.
   Narrowed (*narrow)(const std::uint64_t* start, std::uint64_t* a, std::uint64_t* b, const EventPlanes& plane,
                      std::size_t m, std::size_t& lo, std::size_t& hi, std::int64_t min_replicates,
                      std::size_t sparse_ratio, const CategoryPlanes* pure);

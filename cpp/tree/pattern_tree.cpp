@@ -565,7 +565,7 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
                                sc.best.data());
   } else if (!counted && nw.category >= 0) {
     std::fill(sc.best.begin(), sc.best.end(), 0);
-    sc.best[static_cast<std::size_t>(nw.category)] = kern.count_and(run + lo, run + lo, hi - lo);
+    sc.best[static_cast<std::size_t>(nw.category)] = nw.count;
   } else if (!counted) {
     for (std::size_t q = 0; q < K; ++q) sc.best[q] = kern.count_and(run + lo, category + q * words + lo, hi - lo);
   }

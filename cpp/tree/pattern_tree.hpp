@@ -100,8 +100,9 @@ class PatternTree {
   // Counts of the centre category (written to scratch.best, K entries) for the event whose informed
   // template indices `index` (strictly increasing) take the codes `value`, dropping informed nodes
   // from the last while fewer than min_replicates centres match. With stop_when_pure, the search ends
-  // as soon as one category holds every match (the probabilities cannot change any more; replicates
-  // and kept then describe the node where it stopped).
+  // once one category holds every match (the probabilities cannot change any more; replicates and
+  // kept then describe the node where it stopped, which on the bit planes may be up to three nodes
+  // past the first with one category: they are checked once per group of planes).
   EventAnswer query(int level, const std::int32_t* index, const std::uint8_t* value, int m,
                     std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
 

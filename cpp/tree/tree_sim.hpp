@@ -29,7 +29,7 @@ struct TreeSimOptions {
 struct TreeSimStats {
   std::vector<std::int64_t> simulated;       // nodes simulated per level
   std::vector<double> mean_informed;         // informed template nodes per event, per level
-  std::vector<double> mean_kept;             // kept after node dropping, per level
+  std::vector<double> mean_kept;             // used after node dropping (or one category left), per level
   std::vector<std::int64_t> scans;           // events answered by a TI scan, per level
   std::vector<std::int64_t> relocated;       // hard data moved to a coarse node, per level
   std::vector<double> mean_visited;          // tree nodes or TI centres looked at per event, per level

@@ -256,18 +256,25 @@ class PatternTree:
             Stretches the TI's structures per axis before rotation: 2 along x makes bodies about
             twice as long along x. Factors in (0, 16]; maps are grouped into classes a quarter
             of a power of two apart.
-
-        Notes
-        -----
-        Rotation and affinity are honoured by simulating each class of cells with a tree built
-        from the TI turned and stretched by that class's values (nearest-cell resampling),
-        built on first use and kept; cells read their neighbours whatever their class.
         progress : callable, optional
             Called as ``progress(done, total)`` about ten times a second, on the calling thread.
 
         Returns
         -------
         ndarray of int16, shaped like ``shape``
+
+        Notes
+        -----
+        Rotation and affinity are honoured by simulating each class of cells with a tree built
+        from the TI turned and stretched by that class's values (nearest-cell resampling),
+        built on first use and kept; cells read their neighbours whatever their class.
+
+        Afterwards ``last_stats`` holds lists with one entry per level: ``simulated`` (nodes),
+        ``mean_informed`` (informed template nodes per data event), ``mean_kept`` (nodes used per
+        event: after node dropping, and the search stops once one category holds every match,
+        so it is a diagnostic rather than a count of dropped nodes), ``scans`` (events answered
+        by a TI scan), ``relocated`` (hard data moved to a coarse node), ``mean_visited`` (tree
+        nodes or TI centres looked at per event) and ``seconds`` (wall time).
         """
         out, stats = _run([self], None, shape, hard=hard, soft=soft, tau=tau,
                           target_proportions=target_proportions, steering=steering, seed=seed,
