@@ -226,11 +226,14 @@ SL_TEST(bit_plane_kernels_agree) {
     const std::int64_t min_rep = 1 + static_cast<std::int64_t>(gen() % 4);
     const std::size_t ratio = gen() % 2 ? 16 : 40;
     // Half the trials stop once one code is left: K code planes, every centre in one of them,
-    // words mostly of one code so that sets often become pure.
+    // words mostly of one code so that sets often become pure; in some trials runs of 40 words
+    // share their code, so that sets over more than two vectors become pure too.
     const std::size_t K = 1 + gen() % 4;
     std::vector<std::uint64_t> codes(K * words + planes::kPadWords, 0);
+    const std::size_t code_run = gen() % 2 ? 1 : 40;
+    std::size_t main_code = 0;
     for (std::size_t w = 0; w < words; ++w) {
-      const std::size_t main_code = gen() % K;
+      if (w % code_run == 0) main_code = gen() % K;
       const bool mixed = gen() % 4 == 0;
       for (unsigned bit = 0; bit < 64; ++bit)
         codes[(mixed ? gen() % K : main_code) * words + w] |= std::uint64_t{1} << bit;
