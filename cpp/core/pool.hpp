@@ -10,7 +10,6 @@
 
 #include <algorithm>
 #include <atomic>
-#include <barrier>
 #include <chrono>
 #include <condition_variable>
 #include <cstdint>
@@ -98,6 +97,47 @@ inline void run_supervised(int threads, const std::function<void(int, int)>& bod
   if (poll) poll(ctl.done.load(), ctl.total);
 }
 
+// A barrier for the workers of run_batches. Batches last a few hundred microseconds, and waking a
+// sleeping thread can take tens of microseconds (more on a virtual machine), so a worker that
+// arrives early first spins for up to `spin` (zero when there are more workers than hardware
+// threads: the worker it waits for may need this core), then sleeps. The last worker to arrive
+// runs `completion` before any worker leaves.
+template <class Completion>
+class SpinBarrier {
+ public:
+  SpinBarrier(int count, Completion completion, std::chrono::microseconds spin)
+      : count_(count), spin_(spin), completion_(std::move(completion)) {}
+
+  void arrive_and_wait() {
+    const std::uint32_t phase = phase_.load(std::memory_order_acquire);
+    if (arrived_.fetch_add(1, std::memory_order_acq_rel) == count_ - 1) {
+      completion_();
+      arrived_.store(0, std::memory_order_relaxed);
+      phase_.store(phase + 1, std::memory_order_release);
+      phase_.notify_all();
+      return;
+    }
+    if (spin_.count() > 0) {
+      const auto until = std::chrono::steady_clock::now() + spin_;
+      for (int round = 0;; ++round) {
+        if (phase_.load(std::memory_order_acquire) != phase) return;
+#if defined(__x86_64__) || defined(__i386__)
+        __builtin_ia32_pause();
+#endif
+        if (round % 64 == 63 && std::chrono::steady_clock::now() > until) break;
+      }
+    }
+    while (phase_.load(std::memory_order_acquire) == phase) phase_.wait(phase, std::memory_order_acquire);
+  }
+
+ private:
+  const int count_;
+  const std::chrono::microseconds spin_;
+  Completion completion_;
+  std::atomic<int> arrived_{0};
+  std::atomic<std::uint32_t> phase_{0};
+};
+
 // Runs node_fn(worker, position) for every position of every batch, batch after batch: positions
 // [starts[b], starts[b + 1]) of one batch run concurrently (they must not read each other's
 // results), then after_batch(b) runs on one thread before the next batch starts. `starts` ends
@@ -157,7 +197,9 @@ void run_batches(int threads, const std::vector<std::int64_t>& starts, NodeFn&& 
     stop = ctl.cancelled() || batch >= batches;
     if (!stop) next.store(starts[batch]);
   };
-  std::barrier sync(threads, on_batch_end);
+  const unsigned hardware = std::thread::hardware_concurrency();
+  const bool may_spin = hardware == 0 || static_cast<unsigned>(threads) <= hardware;
+  SpinBarrier sync(threads, on_batch_end, std::chrono::microseconds(may_spin ? 200 : 0));
   run_supervised(
       threads,
       [&](int worker, int) {

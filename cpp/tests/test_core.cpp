@@ -135,6 +135,39 @@ SL_TEST(pool_runs_batches_and_cancels) {
                   Cancelled);
 }
 
+SL_TEST(pool_batches_wait_for_each_other) {
+  // Every node sees all earlier batches finished and their after_batch run; after_batch sees its
+  // whole batch done. Many short batches, some with a slow node (so that waiting workers both
+  // spin and sleep), at 2 workers and at more workers than hardware threads (no spinning).
+  std::vector<std::int64_t> starts{0};
+  std::mt19937_64 gen(3);
+  while (starts.back() < 3000) starts.push_back(starts.back() + 1 + static_cast<std::int64_t>(gen() % 6));
+  const std::size_t batches = starts.size() - 1;
+  std::vector<std::size_t> batch_of(static_cast<std::size_t>(starts.back()));
+  for (std::size_t b = 0; b < batches; ++b)
+    for (auto p = starts[b]; p < starts[b + 1]; ++p) batch_of[static_cast<std::size_t>(p)] = b;
+  for (int threads : {2, static_cast<int>(std::thread::hardware_concurrency()) + 2}) {
+    std::vector<std::atomic<int>> done(batch_of.size());
+    std::atomic<std::size_t> finished{0};  // batches whose after_batch has run
+    std::atomic<bool> ok{true};
+    WorkControl ctl;
+    run_batches(
+        threads, starts,
+        [&](int, std::int64_t p) {
+          if (finished.load() != batch_of[static_cast<std::size_t>(p)]) ok = false;
+          if (p % 97 == 0) std::this_thread::sleep_for(std::chrono::microseconds(300));
+          done[static_cast<std::size_t>(p)] += 1;
+        },
+        [&](std::size_t b) {
+          for (auto p = starts[b]; p < starts[b + 1]; ++p)
+            if (done[static_cast<std::size_t>(p)].load() != 1) ok = false;
+          finished += 1;
+        },
+        ctl, Poll{});
+    SL_CHECK(ok.load() && finished.load() == batches && ctl.done.load() == starts.back());
+  }
+}
+
 SL_TEST(pool_rethrows_worker_errors) {
   std::vector<std::int64_t> starts{0, 8, 16};
   for (int threads : {1, 2}) {
