@@ -53,6 +53,13 @@ inline int first_category(const CategoryPlanes& c, const std::uint64_t* set, std
 #define SL_PORTABLE_KERNEL
 #endif
 
+// Centres in words[lo, hi).
+inline std::int64_t count_words(const std::uint64_t* words, std::size_t lo, std::size_t hi) {
+  std::int64_t t = 0;
+  for (std::size_t i = lo; i < hi; ++i) t += std::popcount(words[i]);
+  return t;
+}
+
 SL_PORTABLE_KERNEL Narrowed narrow_portable(const std::uint64_t* start, std::uint64_t* a_buf, std::uint64_t* b_buf,
                                             const EventPlanes& plane, std::size_t m, std::size_t& lo_ref,
                                             std::size_t& hi_ref, std::int64_t min_replicates, std::size_t sparse_ratio,
@@ -73,14 +80,10 @@ SL_PORTABLE_KERNEL Narrowed narrow_portable(const std::uint64_t* start, std::uin
       q = first_category(*pure, cur, lo);
       c = pure->planes + static_cast<std::size_t>(q) * pure->words;
       std::uint64_t other_codes = 0;
-      std::int64_t total = 0;
-      for (std::size_t i = lo; i < hi; ++i) {
-        other_codes |= cur[i] & ~c[i];
-        total += std::popcount(cur[i]);
-      }
+      for (std::size_t i = lo; i < hi; ++i) other_codes |= cur[i] & ~c[i];
       if (other_codes == 0) {
         out.category = q;
-        out.count = total;
+        out.count = count_words(cur, lo, hi);
         return out;
       }
     }
@@ -89,20 +92,20 @@ SL_PORTABLE_KERNEL Narrowed narrow_portable(const std::uint64_t* start, std::uin
       const std::uint64_t* p = plane[j];
       out.words += hi - lo;
       nonzero = 0;
-      std::int64_t total = 0;
       std::uint64_t other_codes = 0;
+      // Popcounts only where a count is needed (min_replicates > 1, or the stop on one code):
+      // without a vector popcount they cost more than the AND.
       for (std::size_t i = lo; i < hi; ++i) {
         const std::uint64_t a = cur[i] & p[i];
         dst[i] = a;
         nonzero += a != 0;
-        total += std::popcount(a);
         if (c) other_codes |= a & ~c[i];
       }
-      if (total < need) return finish(out, cur, lo, hi, lo_ref, hi_ref);
+      if (nonzero == 0 || (need > 1 && count_words(dst, lo, hi) < need)) return finish(out, cur, lo, hi, lo_ref, hi_ref);
       if (c && other_codes == 0) {
         out.kept = j + 1;
         out.category = q;
-        out.count = total;
+        out.count = count_words(dst, lo, hi);
         return out;
       }
       std::size_t first = lo, last = hi - 1;
