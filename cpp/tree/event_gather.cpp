@@ -114,15 +114,21 @@ __attribute__((target("avx512f"))) int EventGather::gather_vector(const std::int
   const __m512i sign = _mm512_set1_epi32(0x8000);
   const void* here = sim + cell;
   const std::size_t D = offsets_.size();
+  // Away from the grid's faces every template node is inside: no bounds to test.
+  bool interior = true;
+  for (int a = 0; a < 3; ++a) interior = interior && c[a] >= reach_[a] && c[a] < n[a] - reach_[a];
   int m = 0;
   for (std::size_t i = 0; i < D && m < cap; i += 16) {
     const __mmask16 lanes = D - i >= 16 ? static_cast<__mmask16>(0xFFFF) : static_cast<__mmask16>((1u << (D - i)) - 1);
-    const __m512i z = _mm512_add_epi32(cz, _mm512_loadu_si512(dz_.data() + i));
-    const __m512i y = _mm512_add_epi32(cy, _mm512_loadu_si512(dy_.data() + i));
-    const __m512i x = _mm512_add_epi32(cx, _mm512_loadu_si512(dx_.data() + i));
-    __mmask16 inside = _mm512_mask_cmplt_epu32_mask(lanes, z, nz);
-    inside = _mm512_mask_cmplt_epu32_mask(inside, y, ny);
-    inside = _mm512_mask_cmplt_epu32_mask(inside, x, nx);
+    __mmask16 inside = lanes;
+    if (!interior) {
+      const __m512i z = _mm512_add_epi32(cz, _mm512_loadu_si512(dz_.data() + i));
+      const __m512i y = _mm512_add_epi32(cy, _mm512_loadu_si512(dy_.data() + i));
+      const __m512i x = _mm512_add_epi32(cx, _mm512_loadu_si512(dx_.data() + i));
+      inside = _mm512_mask_cmplt_epu32_mask(inside, z, nz);
+      inside = _mm512_mask_cmplt_epu32_mask(inside, y, ny);
+      inside = _mm512_mask_cmplt_epu32_mask(inside, x, nx);
+    }
     // 4 bytes from each node's code (the low half; the grid has one spare entry at its end).
     const __m512i raw = _mm512_mask_i32gather_epi32(zero, inside, _mm512_loadu_si512(flat32_.data() + i), here, 2);
     // Informed: the code's sign bit (bit 15) clear; codes are below 255, so their low byte is the code.
