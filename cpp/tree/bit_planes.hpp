@@ -48,8 +48,8 @@ struct Narrowed {
 inline constexpr std::size_t kGroupPlanes = 4;
 
 // Words every array handed to the kernels must have past the last one it is read at: the
-// kernels read and write whole vectors of eight words, two at a time, from the vector holding
-// the first word of the set.
+// kernels read and write whole vectors of eight words from the set's first word on, two at a
+// time in the register path.
 inline constexpr std::size_t kPadWords = 16;
 
 struct Kernels {

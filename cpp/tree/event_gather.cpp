@@ -68,10 +68,7 @@ int EventGather::gather(const std::int16_t* sim, Index cell, const Ijk& c, int c
 int EventGather::gather_plain(const std::int16_t* sim, Index cell, const Ijk& c, int cap, std::int32_t* index,
                               std::uint8_t* value) const {
   int m = 0;
-  const Ijk& n = grid_.shape();
-  bool inside = true;
-  for (int a = 0; a < 3; ++a) inside = inside && c[a] >= reach_[a] && c[a] < n[a] - reach_[a];
-  if (inside) {
+  if (away_from_faces(c)) {
     // Away from the grid's faces every node is inside: flat offsets, no tests.
     const std::int16_t* here = sim + cell;
     for (std::size_t i = 0; i < flat_.size() && m < cap; ++i) {
@@ -115,8 +112,7 @@ __attribute__((target("avx512f"))) int EventGather::gather_vector(const std::int
   const void* here = sim + cell;
   const std::size_t D = offsets_.size();
   // Away from the grid's faces every template node is inside: no bounds to test.
-  bool interior = true;
-  for (int a = 0; a < 3; ++a) interior = interior && c[a] >= reach_[a] && c[a] < n[a] - reach_[a];
+  const bool interior = away_from_faces(c);
   int m = 0;
   for (std::size_t i = 0; i < D && m < cap; i += 16) {
     const __mmask16 lanes = D - i >= 16 ? static_cast<__mmask16>(0xFFFF) : static_cast<__mmask16>((1u << (D - i)) - 1);

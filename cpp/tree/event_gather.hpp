@@ -29,6 +29,13 @@ class EventGather {
              std::uint8_t* value) const;
 
  private:
+  // Whether every template node of cell c lies inside the grid (c is away from its faces).
+  bool away_from_faces(const Ijk& c) const noexcept {
+    const Ijk& n = grid_.shape();
+    bool inside = true;
+    for (int a = 0; a < 3; ++a) inside = inside && c[a] >= reach_[a] && c[a] < n[a] - reach_[a];
+    return inside;
+  }
   int gather_plain(const std::int16_t* sim, Index cell, const Ijk& c, int cap, std::int32_t* index,
                    std::uint8_t* value) const;
   int gather_vector(const std::int16_t* sim, Index cell, const Ijk& c, int cap, std::int32_t* index,
