@@ -323,6 +323,7 @@ void bind_tree(py::module_& m) {
           st["mean_informed"] = stats.mean_informed;
           st["mean_kept"] = stats.mean_kept;
           st["scans"] = stats.scans;
+          st["remembered"] = stats.remembered;
           st["relocated"] = stats.relocated;
           st["mean_visited"] = stats.mean_visited;
           st["seconds"] = stats.seconds;

@@ -85,6 +85,55 @@ SL_TEST(ordered_tree_matches_centre_check_in_its_order) {
   }
 }
 
+SL_TEST(stopping_at_one_category_keeps_the_probabilities) {
+  // Queries that stop once one category is left (as simulation asks), answered by the walk, the
+  // bit planes or the lead answers, against the full counts: the same counts when several
+  // categories remain, the same single category otherwise.
+  CategoricalImage ti;
+  ti.shape = {1, 40, 40};
+  ti.categories = 3;
+  std::mt19937 gen(5);
+  for (Index y = 0; y < 40; ++y)
+    for (Index x = 0; x < 40; ++x)
+      ti.codes.push_back(gen() % 40 == 0 ? static_cast<std::uint8_t>(gen() % 3) : static_cast<std::uint8_t>((y / 4 + x / 6) % 3));
+  const Template tpl = Template::ellipsoid({0, 3, 3}, 0);
+  const PatternTree tree(ti, tpl, 1, std::int64_t{1} << 30);
+  QueryScratch a, b;
+  int remembered = 0, checked = 0, single = 0;
+  for (int trial = 0; trial < 600; ++trial) {
+    // An event read around a TI cell (so that it has replicates), some nodes left out.
+    const Index cy = 3 + static_cast<Index>(gen() % 34), cx = 3 + static_cast<Index>(gen() % 34);
+    std::vector<std::int32_t> index;
+    std::vector<std::uint8_t> value;
+    const unsigned informed = 1 + gen() % 3;  // in quarters
+    for (std::size_t i = 0; i < tpl.size(); ++i) {
+      if (gen() % 4 >= informed) continue;
+      const Offset& o = tpl.offsets()[i];
+      index.push_back(static_cast<std::int32_t>(i));
+      value.push_back(ti.codes[static_cast<std::size_t>((cy + o[1]) * 40 + cx + o[2])]);
+    }
+    const auto m = static_cast<int>(index.size());
+    const std::int64_t min_rep = 1 + static_cast<std::int64_t>(gen() % 4);
+    for (int again = 0; again < 2; ++again) {  // the second time from the lead answers when kept
+      const auto x = tree.query(0, index.data(), value.data(), m, min_rep, true, a);
+      const auto y = tree.scan(0, index.data(), value.data(), m, min_rep, b);
+      int present = 0;
+      for (auto c : b.best) present += c > 0;
+      if (present > 1) {
+        SL_CHECK(a.best == b.best && x.kept == y.kept && !x.remembered);
+      } else {
+        for (std::size_t q = 0; q < 3; ++q) SL_CHECK((a.best[q] > 0) == (b.best[q] > 0));
+        SL_CHECK(x.kept <= y.kept && x.replicates >= y.replicates);
+        ++single;
+      }
+      remembered += x.remembered;
+      ++checked;
+    }
+  }
+  // Every way was taken (here about 120 lead answers and 810 single categories of 1200).
+  SL_CHECK(remembered > checked / 20 && single > remembered && checked - single > checked / 10);
+}
+
 SL_TEST(tree_counts_the_border_as_the_contract_says) {
   CategoricalImage ti;
   ti.shape = {1, 1, 3};

@@ -30,6 +30,7 @@
 // same exact counts.
 #pragma once
 
+#include <atomic>
 #include <cstdint>
 #include <memory>
 #include <mutex>
@@ -53,6 +54,7 @@ struct EventAnswer {
   std::int64_t replicates = 0;  // centres matching the kept nodes
   int kept = 0;                 // informed nodes kept (a prefix, in template order, of those asked)
   bool scanned = false;         // finished by checking centres on the TI (the cheaper way there)
+  bool remembered = false;      // answered from the level's lead answers (see Level::lead_answers)
   std::int64_t visited = 0;     // tree nodes plus TI centres looked at
 };
 
@@ -102,7 +104,8 @@ class PatternTree {
   // from the last while fewer than min_replicates centres match. With stop_when_pure, the search ends
   // once one category holds every match (the probabilities cannot change any more; replicates and
   // kept then describe the node where it stopped, which on the bit planes may be up to three nodes
-  // past the first with one category: they are checked once per group of planes).
+  // past the first with one category: they are checked once per group of planes). An event whose
+  // leading nodes alone leave one category is answered from the level's lead answers.
   EventAnswer query(int level, const std::int32_t* index, const std::uint8_t* value, int m,
                     std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
 
@@ -140,6 +143,16 @@ class PatternTree {
     // Per plane: its first and past-the-last non-zero word, and its centres.
     std::vector<std::uint32_t> plane_first, plane_end;
     std::vector<std::int64_t> plane_count;
+    // Lead answers, for queries that stop once one category is left. An event's informed nodes
+    // among the first `lead_nodes` query positions are a prefix of it; when that prefix alone
+    // already leaves one category, so does the whole event, with the same answer. Filled as
+    // events ask (any thread; each entry is a pure function of its key), by key
+    // sum (value + 1) * lead_weight[position] over that prefix. Entry: 0 = not known yet,
+    // kUnresolved = the prefix leaves several categories (or none), else a packed answer
+    // (pack_lead_answer). lead_nodes = 0: none kept (the table would be too large for K).
+    std::size_t lead_nodes = 0;
+    std::vector<std::uint32_t> lead_weight;
+    mutable std::vector<std::atomic<std::uint64_t>> lead_answers;
   };
 
  private:
@@ -151,6 +164,10 @@ class PatternTree {
   std::size_t node_cap() const;
   EventAnswer query_level(const Level& L, const std::int32_t* index, const std::uint8_t* value, int m,
                           std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
+  // The lead answer of the event prefix index/value[0, lead) (its nodes all among the first
+  // lead_nodes positions), computed on the bit planes.
+  std::uint64_t lead_answer(const Level& L, const std::int32_t* index, const std::uint8_t* value, int lead,
+                            QueryScratch& sc) const;
   // Finishes a query by checking informed nodes k.. on the TI for the centres of `frontier`
   // (nodes at one depth); `ans` and scratch.best hold the answer for the first k nodes.
   EventAnswer check_centres(const Level& L, const std::int32_t* index, const std::uint8_t* value, int m, int k,

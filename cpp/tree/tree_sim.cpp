@@ -65,7 +65,7 @@ struct Worker {
   std::vector<std::int32_t> index;
   std::vector<std::uint8_t> value;
   std::vector<double> probs, sources, merged;
-  std::int64_t informed = 0, kept = 0, scans = 0, visited = 0;
+  std::int64_t informed = 0, kept = 0, scans = 0, remembered = 0, visited = 0;
 };
 
 }  // namespace
@@ -147,6 +147,7 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
   if (stats) *stats = TreeSimStats{std::vector<std::int64_t>(static_cast<std::size_t>(levels), 0),
                                    std::vector<double>(static_cast<std::size_t>(levels), 0.0),
                                    std::vector<double>(static_cast<std::size_t>(levels), 0.0),
+                                   std::vector<std::int64_t>(static_cast<std::size_t>(levels), 0),
                                    std::vector<std::int64_t>(static_cast<std::size_t>(levels), 0),
                                    std::vector<std::int64_t>(static_cast<std::size_t>(levels), 0),
                                    std::vector<double>(static_cast<std::size_t>(levels), 0.0),
@@ -296,6 +297,7 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       w.informed += m;
       w.kept += ans.kept;
       w.scans += ans.scanned;
+      w.remembered += ans.remembered;
       w.visited += ans.visited;
       double total = 0;
       for (std::size_t k = 0; k < Ks; ++k) total += static_cast<double>(w.scratch.best[k]);
@@ -359,17 +361,18 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       }
       snapshot = counts;
     };
-    for (auto& w : workers) w.informed = w.kept = w.scans = w.visited = 0;
+    for (auto& w : workers) w.informed = w.kept = w.scans = w.remembered = w.visited = 0;
     const auto t0 = std::chrono::steady_clock::now();
     run_batches(threads, starts, node, after_batch, ctl, poll);
     const double seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
     if (stats) {
       const auto L = static_cast<std::size_t>(level);
-      std::int64_t inf = 0, kept = 0, scans = 0, visited = 0;
+      std::int64_t inf = 0, kept = 0, scans = 0, remembered = 0, visited = 0;
       for (auto& w : workers) {
         inf += w.informed;
         kept += w.kept;
         scans += w.scans;
+        remembered += w.remembered;
         visited += w.visited;
       }
       stats->mean_visited[L] = static_cast<double>(visited) / std::max<double>(1.0, static_cast<double>(path.size()));
@@ -379,6 +382,7 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       stats->mean_informed[L] = static_cast<double>(inf) / n;
       stats->mean_kept[L] = static_cast<double>(kept) / n;
       stats->scans[L] = scans;
+      stats->remembered[L] = remembered;
       stats->relocated[L] = static_cast<std::int64_t>(relocated.size());
     }
     // Take relocated hard data back; those nodes are simulated at the next finer level.

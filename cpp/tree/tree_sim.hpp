@@ -31,6 +31,7 @@ struct TreeSimStats {
   std::vector<double> mean_informed;         // informed template nodes per event, per level
   std::vector<double> mean_kept;             // used after node dropping (or one category left), per level
   std::vector<std::int64_t> scans;           // events answered by a TI scan, per level
+  std::vector<std::int64_t> remembered;      // events answered from the lead answers, per level
   std::vector<std::int64_t> relocated;       // hard data moved to a coarse node, per level
   std::vector<double> mean_visited;          // tree nodes or TI centres looked at per event, per level
   std::vector<double> seconds;               // wall time per level

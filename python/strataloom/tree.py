@@ -273,7 +273,8 @@ class PatternTree:
         ``mean_informed`` (informed template nodes per data event), ``mean_kept`` (nodes used per
         event: after node dropping, and the search stops once one category holds every match,
         so it is a diagnostic rather than a count of dropped nodes), ``scans`` (events answered
-        by a TI scan), ``relocated`` (hard data moved to a coarse node), ``mean_visited`` (tree
+        by a TI scan), ``remembered`` (events answered from answers kept by their leading nodes),
+        ``relocated`` (hard data moved to a coarse node), ``mean_visited`` (tree
         nodes or TI centres looked at per event) and ``seconds`` (wall time).
         """
         out, stats = _run([self], None, shape, hard=hard, soft=soft, tau=tau,
