@@ -299,6 +299,17 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       w.scans += ans.scanned;
       w.remembered += ans.remembered;
       w.visited += ans.visited;
+      // One category left and nothing to merge with or steer: the draw could only pick it (its
+      // uniform is a function of the cell alone, so skipping it changes no other draw).
+      if (opt.soft.empty() && gain == 0) {
+        int only = -1;
+        for (int k = 0; k < K; ++k)
+          if (w.scratch.best[static_cast<std::size_t>(k)] > 0) only = only < 0 ? k : K;
+        if (only >= 0 && only < K) {
+          sim[static_cast<std::size_t>(cell)] = static_cast<std::int16_t>(only);
+          return;
+        }
+      }
       double total = 0;
       for (std::size_t k = 0; k < Ks; ++k) total += static_cast<double>(w.scratch.best[k]);
       for (std::size_t k = 0; k < Ks; ++k) w.probs[k] = static_cast<double>(w.scratch.best[k]) / total;
