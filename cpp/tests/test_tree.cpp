@@ -134,6 +134,21 @@ SL_TEST(stopping_at_one_category_keeps_the_probabilities) {
   SL_CHECK(remembered > checked / 20 && single > remembered && checked - single > checked / 10);
 }
 
+SL_TEST(one_node_events_match_centre_check) {
+  // Events of one informed node are answered from counts kept per bit plane.
+  const auto ti = random_image({3, 9, 11}, 4, 8);
+  const PatternTree tree(ti, Template::box({1, 1, 1}), 2, std::int64_t{1} << 30);
+  QueryScratch a, b;
+  for (int level = 0; level < 2; ++level)
+    for (std::int32_t i = 0; i < 26; ++i)
+      for (std::uint8_t v = 0; v < 4; ++v)
+        for (std::int64_t min_rep : {1, 5, 40}) {
+          const auto x = tree.query(level, &i, &v, 1, min_rep, false, a);
+          const auto y = tree.scan(level, &i, &v, 1, min_rep, b);
+          SL_CHECK(x.replicates == y.replicates && x.kept == y.kept && a.best == b.best);
+        }
+}
+
 SL_TEST(tree_counts_the_border_as_the_contract_says) {
   CategoricalImage ti;
   ti.shape = {1, 1, 3};

@@ -25,6 +25,9 @@ constexpr std::int64_t kMiB = 1 << 20;
 constexpr std::uint64_t kLeadEntries = 16384;
 constexpr std::uint64_t kLeadUnknown = 0, kLeadUnresolved = 1;
 
+// Level::plane_category_counts are kept up to this many entries (4 MB).
+constexpr std::size_t kMaxPlaneCategoryCounts = std::size_t{1} << 20;
+
 // A lead answer: one category left, the nodes kept and the centres matching them.
 std::uint64_t pack_lead_answer(int category, std::size_t kept, std::int64_t count) {
   return 2 | static_cast<std::uint64_t>(category) << 2 | static_cast<std::uint64_t>(kept) << 10 |
@@ -70,7 +73,7 @@ std::int64_t level_bytes(const PatternTree::Level& L) {
       (L.first_child.size() + L.first_centre.size() + L.counts.size() + L.depth_start.size() + L.order.size() +
        L.plane_first.size() + L.plane_end.size()) *
           sizeof(std::uint32_t) +
-      L.plane_count.size() * sizeof(std::int64_t) +
+      L.plane_count.size() * sizeof(std::int64_t) + L.plane_category_counts.size() * sizeof(std::uint32_t) +
       (L.sorted.size() + L.delta.size()) * sizeof(std::int64_t) +
       (L.planes.size() + L.category.size() + L.lead_answers.size()) * sizeof(std::uint64_t) +
       L.lead_weight.size() * sizeof(std::uint32_t));
@@ -362,6 +365,14 @@ PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t>
       L.plane_count[p] += std::popcount(plane[w]);
     }
   }
+  if (D * K * K <= kMaxPlaneCategoryCounts) {
+    L.plane_category_counts.assign(D * K * K, 0);
+    for (std::size_t p = 0; p < D * K; ++p)
+      for (std::size_t q = 0; q < K; ++q)
+        for (std::size_t w = L.plane_first[p]; w < L.plane_end[p]; ++w)
+          L.plane_category_counts[p * K + q] +=
+              static_cast<std::uint32_t>(std::popcount(L.planes[p * words + w] & L.category[q * words + w]));
+  }
   // Lead answers: as many leading positions as kLeadEntries keys allow (S symbols each: absent
   // or one of the K codes); fewer than two would only repeat the planes' own counts.
   std::size_t lead = 0;
@@ -421,6 +432,16 @@ EventAnswer PatternTree::query_level(const Level& L, const std::int32_t* index, 
     return nonzero <= 1;
   };
   if (m == 0 || (stop_when_pure && pure(sc.best))) return ans;
+  if (m == 1 && !L.plane_category_counts.empty()) {
+    // One informed node: its plane's counts, kept from the build (or dropped: the proportions).
+    const std::size_t p = static_cast<std::size_t>(index[0]) * K + value[0];
+    if (L.plane_count[p] >= std::max<std::int64_t>(min_replicates, 1)) {
+      for (std::size_t q = 0; q < K; ++q) sc.best[q] = L.plane_category_counts[p * K + q];
+      ans.replicates = L.plane_count[p];
+      ans.kept = 1;
+    }
+    return ans;
+  }
   if (stop_when_pure && L.lead_nodes > 0) {
     std::uint32_t key = 0;
     int lead = 0;

@@ -143,6 +143,9 @@ class PatternTree {
     // Per plane: its first and past-the-last non-zero word, and its centres.
     std::vector<std::uint32_t> plane_first, plane_end;
     std::vector<std::int64_t> plane_count;
+    // Per plane, its centres per category (K each): the answer to an event of one informed node.
+    // Empty when D * K * K passes kMaxPlaneCategoryCounts (many categories).
+    std::vector<std::uint32_t> plane_category_counts;
     // Lead answers, for queries that stop once one category is left. An event's informed nodes
     // among the first `lead_nodes` query positions are a prefix of it; when that prefix alone
     // already leaves one category, so does the whole event, with the same answer. Filled as
