@@ -118,9 +118,19 @@ def test_identical_for_any_thread_count():
     tree = sl.PatternTree(ti, sl.Template.ellipsoid((1, 3, 3), max_nodes=30), levels=3)
     hard = np.full((8, 32, 32), -1)
     hard[:, 16, 16] = 1
-    runs = [tree.simulate((8, 32, 32), hard=hard, seed=11, threads=t) for t in (1, 2, 4)]
+    runs, stats = [], []
+    for t in (1, 2, 4):
+        fresh = sl.PatternTree(ti, sl.Template.ellipsoid((1, 3, 3), max_nodes=30), levels=3)
+        runs.append(fresh.simulate((8, 32, 32), hard=hard, seed=11, threads=t))
+        stats.append({k: v for k, v in fresh.last_stats.items() if k != "seconds"})
+        # A second realization on the same tree finds the answers the first one kept.
+        np.testing.assert_array_equal(runs[-1], fresh.simulate((8, 32, 32), hard=hard, seed=11, threads=t))
+        assert {k: v for k, v in fresh.last_stats.items() if k != "seconds"} == stats[-1]
     np.testing.assert_array_equal(runs[0], runs[1])
     np.testing.assert_array_equal(runs[0], runs[2])
+    # The engine's counters too: the answers the threads remember are the same whoever fills them.
+    assert stats[0] == stats[1] == stats[2]
+    assert sum(stats[0]["remembered"]) > 0
     assert not np.array_equal(runs[0], tree.simulate((8, 32, 32), hard=hard, seed=12, threads=2))
 
 
@@ -231,7 +241,7 @@ def test_results_do_not_depend_on_the_processor_kernels(tmp_path):
         "    for mr in (1, 3):\n"
         "        t = sl.PatternTree(ti, tpl, levels=levels, min_replicates=mr)\n"
         "        out[f'{levels}-{mr}'] = t.simulate((50, 60), seed=levels + mr, threads=2)\n"
-        "        for name in ('mean_informed', 'mean_kept', 'scans'):\n"
+        "        for name in ('mean_informed', 'mean_kept', 'scans', 'remembered'):\n"
         "            out[f'{levels}-{mr}-{name}'] = np.asarray(t.last_stats[name])\n"
         "        picks = np.random.default_rng(levels + mr)\n"
         "        for q in range(40):\n"
