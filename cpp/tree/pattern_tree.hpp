@@ -150,9 +150,9 @@ class PatternTree {
     // among the first `lead_nodes` query positions are a prefix of it; when that prefix alone
     // already leaves one category, so does the whole event, with the same answer. Filled as
     // events ask (any thread; each entry is a pure function of its key), by key
-    // sum (value + 1) * lead_weight[position] over that prefix. Entry: 0 = not known yet,
-    // kUnresolved = the prefix leaves several categories (or none), else a packed answer
-    // (pack_lead_answer). lead_nodes = 0: none kept (the table would be too large for K).
+    // sum (value + 1) * lead_weight[position] over that prefix. Entry: 0 = not known yet, 1 = the
+    // prefix leaves several categories (or none), else the category, the nodes kept and their
+    // centres, packed (pattern_tree.cpp). lead_nodes = 0: none kept (too many categories).
     std::size_t lead_nodes = 0;
     std::vector<std::uint32_t> lead_weight;
     mutable std::vector<std::atomic<std::uint64_t>> lead_answers;
