@@ -134,19 +134,30 @@ SL_TEST(stopping_at_one_category_keeps_the_probabilities) {
   SL_CHECK(remembered > checked / 20 && single > remembered && checked - single > checked / 10);
 }
 
-SL_TEST(one_node_events_match_centre_check) {
-  // Events of one informed node are answered from counts kept per bit plane.
+SL_TEST(one_and_two_node_events_match_centre_check) {
+  // Events of one informed node are answered from counts kept per bit plane, of two from counts
+  // kept per pair (asked twice: computed, then found), dropping the second node when it leaves
+  // too few replicates.
   const auto ti = random_image({3, 9, 11}, 4, 8);
   const PatternTree tree(ti, Template::box({1, 1, 1}), 2, std::int64_t{1} << 30);
   QueryScratch a, b;
+  int dropped = 0;
   for (int level = 0; level < 2; ++level)
     for (std::int32_t i = 0; i < 26; ++i)
-      for (std::uint8_t v = 0; v < 4; ++v)
-        for (std::int64_t min_rep : {1, 5, 40}) {
-          const auto x = tree.query(level, &i, &v, 1, min_rep, false, a);
-          const auto y = tree.scan(level, &i, &v, 1, min_rep, b);
-          SL_CHECK(x.replicates == y.replicates && x.kept == y.kept && a.best == b.best);
-        }
+      for (std::int32_t j = i; j < 26; ++j)
+        for (std::uint8_t v = 0; v < 4; ++v)
+          for (std::uint8_t w = 0; w < 4; ++w)
+            for (std::int64_t min_rep : {1, 5, 40})
+              for (int again = 0; again < 2; ++again) {
+                const std::int32_t index[2] = {i, j};
+                const std::uint8_t value[2] = {v, w};
+                const int m = i == j ? 1 : 2;
+                const auto x = tree.query(level, index + 2 - m, value + 2 - m, m, min_rep, false, a);
+                const auto y = tree.scan(level, index + 2 - m, value + 2 - m, m, min_rep, b);
+                SL_CHECK(x.replicates == y.replicates && x.kept == y.kept && a.best == b.best);
+                dropped += m == 2 && x.kept == 1;
+              }
+  SL_CHECK(dropped > 100);
 }
 
 SL_TEST(tree_counts_the_border_as_the_contract_says) {

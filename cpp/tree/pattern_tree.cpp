@@ -25,8 +25,9 @@ constexpr std::int64_t kMiB = 1 << 20;
 constexpr std::uint64_t kLeadEntries = 16384;
 constexpr std::uint64_t kLeadUnknown = 0, kLeadUnresolved = 1;
 
-// Level::plane_category_counts are kept up to this many entries (4 MB).
+// Level::plane_category_counts and Level::pair_counts are kept up to this many counts (4 MB).
 constexpr std::size_t kMaxPlaneCategoryCounts = std::size_t{1} << 20;
+constexpr std::size_t kMaxPairCounts = std::size_t{1} << 20;
 
 // A lead answer: one category left, the nodes kept and the centres matching them.
 std::uint64_t pack_lead_answer(int category, std::size_t kept, std::int64_t count) {
@@ -73,7 +74,8 @@ std::int64_t level_bytes(const PatternTree::Level& L) {
       (L.first_child.size() + L.first_centre.size() + L.counts.size() + L.depth_start.size() + L.order.size() +
        L.plane_first.size() + L.plane_end.size()) *
           sizeof(std::uint32_t) +
-      L.plane_count.size() * sizeof(std::int64_t) + L.plane_category_counts.size() * sizeof(std::uint32_t) +
+      L.plane_count.size() * sizeof(std::int64_t) +
+      (L.plane_category_counts.size() + L.pair_counts.size()) * sizeof(std::uint32_t) + L.pair_ready.size() +
       (L.sorted.size() + L.delta.size()) * sizeof(std::int64_t) +
       (L.planes.size() + L.category.size() + L.lead_answers.size()) * sizeof(std::uint64_t) +
       L.lead_weight.size() * sizeof(std::uint32_t));
@@ -372,6 +374,11 @@ PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t>
         for (std::size_t w = L.plane_first[p]; w < L.plane_end[p]; ++w)
           L.plane_category_counts[p * K + q] +=
               static_cast<std::uint32_t>(std::popcount(L.planes[p * words + w] & L.category[q * words + w]));
+    const std::size_t pair_entries = D * (D - 1) / 2 * K * K;
+    if (pair_entries * K <= kMaxPairCounts) {
+      L.pair_counts = std::vector<std::atomic<std::uint32_t>>(pair_entries * K);
+      L.pair_ready = std::vector<std::atomic<std::uint8_t>>(pair_entries);
+    }
   }
   // Lead answers: as many leading positions as kLeadEntries keys allow (S symbols each: absent
   // or one of the K codes); fewer than two would only repeat the planes' own counts.
@@ -432,6 +439,21 @@ EventAnswer PatternTree::query_level(const Level& L, const std::int32_t* index, 
     return nonzero <= 1;
   };
   if (m == 0 || (stop_when_pure && pure(sc.best))) return ans;
+  if (m == 2 && !L.pair_counts.empty()) {
+    // Two informed nodes: the pair's counts (computed once per pair of positions and codes).
+    const auto p0 = static_cast<std::size_t>(index[0]), p1 = static_cast<std::size_t>(index[1]);
+    const std::size_t entry = ((p1 * (p1 - 1) / 2 + p0) * K + value[0]) * K + value[1];
+    if (L.pair_ready[entry].load(std::memory_order_acquire) == 0) fill_pair(L, index, value, entry);
+    std::int64_t total = 0;
+    for (std::size_t q = 0; q < K; ++q) total += sc.counts[q] = L.pair_counts[entry * K + q].load(std::memory_order_relaxed);
+    if (total >= std::max<std::int64_t>(min_replicates, 1)) {
+      sc.best.swap(sc.counts);
+      ans.replicates = total;
+      ans.kept = 2;
+      return ans;
+    }
+    m = 1;  // the second node dropped
+  }
   if (m == 1 && !L.plane_category_counts.empty()) {
     // One informed node: its plane's counts, kept from the build (or dropped: the proportions).
     const std::size_t p = static_cast<std::size_t>(index[0]) * K + value[0];
@@ -650,6 +672,24 @@ EventAnswer PatternTree::check_centres(const Level& L, const std::int32_t* index
     for (std::size_t q = 0; q < K; ++q) ans.replicates += sc.best[q];
   }
   return ans;
+}
+
+void PatternTree::fill_pair(const Level& L, const std::int32_t* index, const std::uint8_t* value,
+                            std::size_t entry) const {
+  const std::size_t K = static_cast<std::size_t>(ti_.categories);
+  const std::size_t words = L.words;
+  const std::size_t a = static_cast<std::size_t>(index[0]) * K + value[0];
+  const std::size_t b = static_cast<std::size_t>(index[1]) * K + value[1];
+  const std::size_t lo = std::max(L.plane_first[a], L.plane_first[b]), hi = std::min(L.plane_end[a], L.plane_end[b]);
+  const std::uint64_t* pa = L.planes.data() + a * words;
+  const std::uint64_t* pb = L.planes.data() + b * words;
+  for (std::size_t q = 0; q < K; ++q) {
+    const std::uint64_t* c = L.category.data() + q * words;
+    std::uint32_t n = 0;
+    for (std::size_t w = lo; w < hi; ++w) n += static_cast<std::uint32_t>(std::popcount(pa[w] & pb[w] & c[w]));
+    L.pair_counts[entry * K + q].store(n, std::memory_order_relaxed);
+  }
+  L.pair_ready[entry].store(1, std::memory_order_release);
 }
 
 std::uint64_t PatternTree::lead_answer(const Level& L, const std::int32_t* index, const std::uint8_t* value, int lead,

@@ -146,6 +146,13 @@ class PatternTree {
     // Per plane, its centres per category (K each): the answer to an event of one informed node.
     // Empty when D * K * K passes kMaxPlaneCategoryCounts (many categories).
     std::vector<std::uint32_t> plane_category_counts;
+    // Pair answers: per pair of positions p0 < p1 and their codes v0, v1 (entry
+    // ((p1 (p1 - 1) / 2 + p0) K + v0) K + v1), the centres per category matching both (K counts),
+    // filled as events of two informed nodes ask (any thread; pair_ready[entry] is set after the
+    // counts, which are a pure function of the entry). Empty when the counts would pass
+    // kMaxPairCounts, or without plane_category_counts (a dropped second node falls back on them).
+    mutable std::vector<std::atomic<std::uint32_t>> pair_counts;
+    mutable std::vector<std::atomic<std::uint8_t>> pair_ready;
     // Lead answers, for queries that stop once one category is left. An event's informed nodes
     // among the first `lead_nodes` query positions are a prefix of it; when that prefix alone
     // already leaves one category, so does the whole event, with the same answer. Filled as
@@ -167,6 +174,8 @@ class PatternTree {
   std::size_t node_cap() const;
   EventAnswer query_level(const Level& L, const std::int32_t* index, const std::uint8_t* value, int m,
                           std::int64_t min_replicates, bool stop_when_pure, QueryScratch& scratch) const;
+  // Fills the pair answer `entry` of the event index/value[0, 2) (see Level::pair_counts).
+  void fill_pair(const Level& L, const std::int32_t* index, const std::uint8_t* value, std::size_t entry) const;
   // The lead answer of the event prefix index/value[0, lead) (its nodes all among the first
   // lead_nodes positions), computed on the bit planes.
   std::uint64_t lead_answer(const Level& L, const std::int32_t* index, const std::uint8_t* value, int lead,
