@@ -368,12 +368,13 @@ PatternTree::Level PatternTree::build_level(int level, std::vector<std::int32_t>
     }
   }
   if (D * K * K <= kMaxPlaneCategoryCounts) {
+    const planes::Kernels& kern = planes::best();
     L.plane_category_counts.assign(D * K * K, 0);
     for (std::size_t p = 0; p < D * K; ++p)
       for (std::size_t q = 0; q < K; ++q)
-        for (std::size_t w = L.plane_first[p]; w < L.plane_end[p]; ++w)
-          L.plane_category_counts[p * K + q] +=
-              static_cast<std::uint32_t>(std::popcount(L.planes[p * words + w] & L.category[q * words + w]));
+        L.plane_category_counts[p * K + q] = static_cast<std::uint32_t>(
+            kern.count_and(L.planes.data() + p * words + L.plane_first[p], L.category.data() + q * words + L.plane_first[p],
+                           L.plane_end[p] - L.plane_first[p]));
     const std::size_t pair_entries = D * (D - 1) / 2 * K * K;
     if (pair_entries * K <= kMaxPairCounts) {
       L.pair_counts = std::vector<std::atomic<std::uint32_t>>(pair_entries * K);
