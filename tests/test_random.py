@@ -61,6 +61,15 @@ def test_batches_are_conflict_free_and_cover_the_path():
     again, starts2 = sl.conflict_free_batches(g, 1, reach, path, max_batch=50)
     np.testing.assert_array_equal(order, again)
     np.testing.assert_array_equal(starts, starts2)
+    # Nodes within reach of each other keep their path order, so running the batches in turn gives
+    # what a sequential visit of the path gives (common practice, no source).
+    rank = np.empty(g.size, dtype=np.int64)
+    rank[order] = np.arange(len(order))
+    along = g.cell(path) // 2
+    d = np.abs(along[:, None, :] - along[None, :, :])
+    i, j = np.nonzero(np.triu((d <= np.array(reach)).all(axis=-1), k=1))
+    assert len(i) > 1000
+    assert (rank[path[i]] < rank[path[j]]).all()
 
 
 def test_a_max_batch_past_the_path_changes_nothing():

@@ -19,18 +19,18 @@ std::vector<Index> level_cells(const Grid& grid, int level, int coarsest);
 // probability 2**-64) fall back to the cell index. The order is a pure function of its inputs.
 void shuffle_path(std::vector<Index>& cells, std::uint64_t seed, int level);
 
-// Reorders `path` into batches in which no two nodes lie within `reach` (level cells, per axis) of
-// each other, and returns the batch starts followed by path.size(). Nodes that conflict with the
-// batch being formed are deferred to the next batch in their order, so the result is a pure
-// function of the inputs (not of the thread count). Level cells of level g are cells / 2**g.
+// Reorders `path` into batches of nodes that cannot read each other, and returns the batch starts
+// followed by path.size(). Nodes closer than `reach` + 1 level cells along every axis may read each
+// other (level cells of level g are cells / 2**g; the test is by buckets of reach + 1 level cells,
+// nodes of neighbouring buckets counting as close). A node goes to the batch after the last one
+// holding an earlier path node close to it, so running the batches in turn, the nodes of one batch
+// in any order, gives what visiting the path in order gives. Within a batch nodes keep their path
+// order; batches larger than max_batch are cut into pieces. A pure function of the inputs.
 std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, const Offset& reach,
                                                 std::vector<Index>& path, std::int64_t max_batch = 512);
 
-// About the most nodes a conflict-free batch of `level` can hold: a node blocks its bucket and the
-// neighbouring ones, and random picks pack about one node per four buckets. A max_batch above it
-// hardly makes batches larger but widens the window of candidates each batch looks at
-// (4 * max_batch), which costs time; the window also decides which nodes share a batch, so the
-// path order (and so a realization) depends on max_batch.
-std::int64_t batch_capacity(const Grid& grid, int level, const Offset& reach);
+// The starts of consecutive pieces of at most max_batch nodes of a path of `count` nodes, followed
+// by count: batches for one worker, which visits the path in order.
+std::vector<std::int64_t> path_pieces(std::size_t count, std::int64_t max_batch);
 
 }  // namespace sl

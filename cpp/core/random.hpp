@@ -27,13 +27,28 @@ inline constexpr std::uint64_t mix64(std::uint64_t z) noexcept {
 }
 }  // namespace detail
 
+// The draws of many cells under one (seed, level, stream): the part of the key they share is
+// mixed once, so each cell costs one mix. CellBits(seed, level, stream)(cell) is
+// random_bits(seed, level, cell, stream).
+class CellBits {
+ public:
+  constexpr CellBits(std::uint64_t seed, std::uint32_t level, std::uint32_t stream) noexcept
+      : shared_(detail::mix64(detail::mix64(seed + 0x9e3779b97f4a7c15ULL) ^
+                              (std::uint64_t{level} << 32 | stream) * 0xd6e8feb86659fd93ULL)) {}
+  constexpr CellBits(std::uint64_t seed, std::uint32_t level, Stream stream) noexcept
+      : CellBits(seed, level, static_cast<std::uint32_t>(stream)) {}
+  constexpr std::uint64_t operator()(std::uint64_t cell) const noexcept {
+    return detail::mix64(shared_ ^ (cell + 0x632be59bd9b4e019ULL) * 0x9e3779b97f4a7c15ULL);
+  }
+
+ private:
+  std::uint64_t shared_;
+};
+
 // 64 random bits for (seed, level, cell, stream).
 inline constexpr std::uint64_t random_bits(std::uint64_t seed, std::uint32_t level, std::uint64_t cell,
                                            std::uint32_t stream) noexcept {
-  std::uint64_t h = detail::mix64(seed + 0x9e3779b97f4a7c15ULL);
-  h = detail::mix64(h ^ (std::uint64_t{level} << 32 | stream) * 0xd6e8feb86659fd93ULL);
-  h = detail::mix64(h ^ (cell + 0x632be59bd9b4e019ULL) * 0x9e3779b97f4a7c15ULL);
-  return h;
+  return CellBits(seed, level, stream)(cell);
 }
 
 inline constexpr std::uint64_t random_bits(std::uint64_t seed, std::uint32_t level, std::uint64_t cell,

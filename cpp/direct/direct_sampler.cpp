@@ -1021,22 +1021,23 @@ Stats simulate_zones(const std::vector<const TrainingImage*>& tis, const std::ve
   }
   ctl.total = static_cast<std::int64_t>(path.size());
 
-  // Path order. Random: shuffled, then reordered into conflict-free batches (nodes of one batch
-  // cannot see each other), which spreads consecutive nodes apart so that workers rarely wait on
-  // each other. Sweep: flat order, a unilateral scheme in which every node depends on the previous
-  // one, so it runs on one thread. The reach is the widest search window of any zone (on the grid).
+  // Path order. Random: shuffled. Several workers take it reordered into conflict-free batches
+  // (nodes of one batch cannot see each other, and each comes after the earlier nodes it sees), which
+  // spreads consecutive nodes apart so that workers rarely wait on each other and leaves the result
+  // that of the shuffled path. Sweep: flat order, a unilateral scheme in which every node depends on
+  // the previous one, so it runs on one thread. The reach is the widest search window of any zone
+  // (on the grid).
   int threads = resolve_threads(global.threads);
+  if (global.path != PathKind::random) threads = 1;
+  threads = static_cast<int>(std::clamp<std::int64_t>(static_cast<std::int64_t>(path.size()), 1, threads));
   if (global.path == PathKind::random) {
     shuffle_path(path, global.seed, 0);
     Offset reach{0, 0, 0};
     for (const Params& p : params)
       for (const Offset& o : p.search)
         for (int a = 0; a < 3; ++a) reach[a] = std::max(reach[a], std::abs(o[a]));
-    conflict_free_batches(grid, 0, reach, path, global.max_batch);
-  } else {
-    threads = 1;
+    if (threads > 1) conflict_free_batches(grid, 0, reach, path, global.max_batch);
   }
-  threads = static_cast<int>(std::clamp<std::int64_t>(static_cast<std::int64_t>(path.size()), 1, threads));
   // The result is that of one thread visiting the path in order: a node waits only for the earlier
   // nodes it reads (no barrier between batches, so a worker the system pauses holds up only the nodes
   // that need its node), which makes it the same for any number of threads.

@@ -148,7 +148,7 @@ struct Params {
   PathKind path = PathKind::random;  // random path (batch-ordered), or one sweep in flat order
   std::uint64_t seed = 0;
   int threads = 0;                   // <= 0: all hardware threads
-  std::int64_t max_batch = 256;      // batch size cap of the path's conflict-free ordering
+  std::int64_t max_batch = 256;      // batch size cap of the conflict-free ordering (no effect on the result)
 };
 
 // Engine counters of one run.

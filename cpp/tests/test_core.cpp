@@ -87,18 +87,38 @@ SL_TEST(batches_are_conflict_free) {
   auto p = level_cells(g, 0, 0);
   shuffle_path(p, 3, 0);
   auto copy = p;
+  const auto copy_path = p;
   const Offset reach{0, 2, 3};
   const auto starts = conflict_free_batches(g, 0, reach, p, 64);
   std::sort(copy.begin(), copy.end());
   auto sorted = p;
   std::sort(sorted.begin(), sorted.end());
   SL_CHECK(sorted == copy);
-  for (std::size_t b = 0; b + 1 < starts.size(); ++b)
+  SL_CHECK(starts.front() == 0 && starts.back() == static_cast<std::int64_t>(p.size()));
+  for (std::size_t b = 0; b + 1 < starts.size(); ++b) {
+    SL_CHECK(starts[b + 1] - starts[b] >= 1 && starts[b + 1] - starts[b] <= 64);
     for (auto i = starts[b]; i < starts[b + 1]; ++i)
       for (auto j = i + 1; j < starts[b + 1]; ++j) {
         const Ijk a = g.cell(p[i]), c = g.cell(p[j]);
         SL_CHECK(std::abs(a[1] - c[1]) > reach[1] || std::abs(a[2] - c[2]) > reach[2]);
       }
+  }
+  // Nodes that may read each other keep their path order, so running the batches in turn gives
+  // what visiting the path in order gives.
+  std::vector<std::size_t> rank(static_cast<std::size_t>(g.size()));
+  for (std::size_t i = 0; i < p.size(); ++i) rank[static_cast<std::size_t>(p[i])] = i;
+  for (std::size_t i = 0; i < copy_path.size(); ++i)
+    for (std::size_t j = i + 1; j < copy_path.size(); ++j) {
+      const Ijk a = g.cell(copy_path[i]), c = g.cell(copy_path[j]);
+      if (std::abs(a[1] - c[1]) <= reach[1] && std::abs(a[2] - c[2]) <= reach[2])
+        SL_CHECK(rank[static_cast<std::size_t>(copy_path[i])] < rank[static_cast<std::size_t>(copy_path[j])]);
+    }
+}
+
+SL_TEST(one_worker_takes_the_path_in_pieces) {
+  SL_CHECK((path_pieces(0, 4) == std::vector<std::int64_t>{0}));
+  SL_CHECK((path_pieces(9, 4) == std::vector<std::int64_t>{0, 4, 8, 9}));
+  SL_CHECK((path_pieces(8, 4) == std::vector<std::int64_t>{0, 4, 8}));
 }
 
 SL_TEST(pool_runs_batches_and_cancels) {

@@ -204,17 +204,12 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
       stage_cells[0].swap(cells);
     }
     std::vector<Index> path;
-    std::vector<std::int64_t> starts{0};
     std::fill(stage_query.begin(), stage_query.end(), StageQuery{});
     for (int p : kStageOrder) {
       std::vector<Index>& part = stage_cells[static_cast<std::size_t>(p)];
       if (part.empty()) continue;
       if (!std::is_sorted(part.begin(), part.end())) std::sort(part.begin(), part.end());  // released cells came last
       shuffle_path(part, opt.seed, level);
-      const auto part_starts =
-          conflict_free_batches(grid, level, reach, part, std::min(opt.max_batch, batch_capacity(grid, level, reach)));
-      const auto offset = static_cast<std::int64_t>(path.size());
-      for (std::size_t b = 1; b < part_starts.size(); ++b) starts.push_back(offset + part_starts[b]);
       if (path.empty()) {
         path.swap(part);
       } else {
@@ -233,6 +228,13 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
         q.order = std::move(order);
       }
     }
+    // The realization is that of one worker visiting the path in order. Several workers run it in
+    // batches of nodes that cannot read each other, which gives the same result. Steering reads
+    // the proportions as they stand after each batch, so with steering every thread count runs
+    // those batches; without it one worker takes the path in pieces (only to poll between them).
+    const std::vector<std::int64_t> starts = threads > 1 || gain > 0
+                                                 ? conflict_free_batches(grid, level, reach, path, opt.max_batch)
+                                                 : path_pieces(path.size(), opt.max_batch);
     // Build (or find) the ordered trees of this level, one per worker at a time.
     std::vector<std::size_t> wanted;
     for (std::size_t i = 0; i < stage_query.size(); ++i)
@@ -260,6 +262,7 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
     std::int64_t informed_total = 0;
     for (auto c : counts) informed_total += c;
 
+    const CellBits draw_bits(opt.seed, static_cast<std::uint32_t>(level), Stream::draw);
     auto node = [&](int wid, std::int64_t pos) {
       Worker& w = workers[static_cast<std::size_t>(wid)];
       const Index cell = path[static_cast<std::size_t>(pos)];
@@ -349,7 +352,7 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
         }
       }
       // Draw the category.
-      const double u = uniform(opt.seed, static_cast<std::uint32_t>(level), static_cast<std::uint64_t>(cell), Stream::draw);
+      const double u = to_unit(draw_bits(static_cast<std::uint64_t>(cell)));
       double acc = 0;
       int pick = -1, last_positive = 0;
       for (int k = 0; k < K; ++k) {

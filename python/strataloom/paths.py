@@ -65,8 +65,11 @@ def conflict_free_batches(grid: Grid, level: int, reach: Any, path: Any,
                           max_batch: int = 512) -> tuple[np.ndarray, np.ndarray]:
     """Split a path into batches whose nodes lie beyond ``reach`` of each other.
 
-    Nodes that conflict with the batch being formed move to the next batch, keeping their order,
-    so the result depends only on the inputs.
+    A node goes to the batch after the last one holding an earlier path node within its reach,
+    so running the batches in turn (the nodes of one batch in any order, e.g. on several threads)
+    gives what visiting the path in order gives. Within a batch nodes keep their path order, and
+    batches of more than ``max_batch`` nodes are cut into pieces. The result depends only on the
+    inputs.
 
     Parameters
     ----------
@@ -78,6 +81,7 @@ def conflict_free_batches(grid: Grid, level: int, reach: Any, path: Any,
     path : array of int
         Flat cell indices.
     max_batch : int, default 512
+        Most nodes per batch.
 
     Returns
     -------

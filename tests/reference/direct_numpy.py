@@ -5,10 +5,8 @@ binary arithmetic) and by the benchmarks (as the "vectorised NumPy" baseline: th
 vectorised over chunks of candidates; nodes are visited one by one in Python).
 
 Rules (see cpp/direct/direct_sampler.hpp):
-* path: the cells needing a value in `strataloom.random_path` order, reordered by
-  `strataloom.conflict_free_batches` with the template's reach as ``reach`` (max_batch 256);
-  batches do not change the result of a sequential run, so nodes are simply visited in that order;
-  or flat C order for the sweep;
+* path: the cells needing a value in `strataloom.random_path` order (the engine's workers run it
+  in conflict-free batches, which give the same result), or flat C order for the sweep;
 * neighbours per variable: the node itself when informed, then the template offsets in order,
   keeping informed grid cells, n at most;
 * distances: continuous = sqrt(weighted mean of min(diff**2, 1)), categorical = weighted mismatch
@@ -123,9 +121,7 @@ def simulate_reference(
         order = sl.random_path(grid, 0, seed)
         wanted = np.zeros(grid.size, dtype=bool)
         wanted[cells] = True
-        order = order[wanted[order]]
-        order, _ = sl.conflict_free_batches(grid, 0, tuple(int(r) for r in grid_reach), order, 256)
-        cells = [int(c) for c in order]
+        cells = [int(c) for c in order[wanted[order]]]
     source = np.full(int(np.prod(gshape)), -1, dtype=np.int64)
     starts = sl.uniform_draws(seed, 0, np.asarray(cells, dtype=np.int64), _START_STREAM)
 
