@@ -15,6 +15,7 @@
 #include <cstdint>
 #include <exception>
 #include <functional>
+#include <limits>
 #include <mutex>
 #include <thread>
 #include <vector>
@@ -225,6 +226,71 @@ void run_batches(int threads, const std::vector<std::int64_t>& starts, NodeFn&& 
       ctl, poll, interval);
   if (node_error) std::rethrow_exception(node_error);
   if (after_error) std::rethrow_exception(after_error);
+}
+
+// Runs node_fn(worker, position) for positions 0..count-1, handed out in increasing order to
+// `threads` workers under run_supervised, without barriers: a position starts once every earlier
+// position q with conflicts(position, q) is done, so the result is that of one worker visiting
+// the positions in order (conflicts must hold for every pair of which one reads the other's
+// result). Each worker shows the position it runs in a slot; positions are handed out and shown
+// under one lock, so every earlier position is either done or in a slot, and a position checks
+// only the other workers' slots. Progress (ctl.done) is added every 64 nodes.
+namespace detail {
+// The position a worker of run_in_order runs (kIdle: none), on its own cache line.
+struct alignas(64) OrderSlot {
+  static constexpr std::int64_t kIdle = std::numeric_limits<std::int64_t>::max();
+  std::atomic<std::int64_t> position{kIdle};
+};
+}  // namespace detail
+
+template <class Conflicts, class NodeFn>
+void run_in_order(int threads, std::int64_t count, Conflicts&& conflicts, NodeFn&& node_fn, WorkControl& ctl,
+                  const Poll& poll, std::chrono::milliseconds interval = std::chrono::milliseconds(100)) {
+  threads = static_cast<int>(std::clamp<std::int64_t>(count, 1, resolve_threads(threads)));
+  using Slot = detail::OrderSlot;
+  constexpr std::int64_t kIdle = Slot::kIdle;
+  std::vector<Slot> slots(static_cast<std::size_t>(threads));
+  std::mutex hand_out;
+  std::int64_t next = 0;  // guarded by hand_out
+  const unsigned hardware = std::thread::hardware_concurrency();
+  const bool may_spin = hardware == 0 || static_cast<unsigned>(threads) <= hardware;
+  run_supervised(
+      threads,
+      [&](int worker, int) {
+        Slot& mine = slots[static_cast<std::size_t>(worker)];
+        std::int64_t unreported = 0;
+        while (!ctl.cancelled()) {
+          std::int64_t p = 0;
+          {
+            std::lock_guard<std::mutex> lock(hand_out);
+            p = next++;
+            if (p < count) mine.position.store(p, std::memory_order_release);
+          }
+          if (p >= count) break;
+          for (int other = 0; other < threads; ++other) {
+            if (other == worker) continue;
+            const Slot& theirs = slots[static_cast<std::size_t>(other)];
+            const std::int64_t q = theirs.position.load(std::memory_order_acquire);
+            if (q >= p || !conflicts(p, q)) continue;  // idle, later, or out of reach
+            for (int spin = 0; theirs.position.load(std::memory_order_acquire) == q && !ctl.cancelled(); ++spin) {
+#if defined(__x86_64__) || defined(__i386__)
+              __builtin_ia32_pause();
+#endif
+              if (!may_spin || spin >= 4096) std::this_thread::yield();
+            }
+          }
+          if (ctl.cancelled()) break;
+          node_fn(worker, p);
+          mine.position.store(kIdle, std::memory_order_release);  // p done, its results visible
+          if (++unreported == 64) {
+            ctl.done.fetch_add(unreported, std::memory_order_relaxed);
+            unreported = 0;
+          }
+        }
+        mine.position.store(kIdle, std::memory_order_release);
+        ctl.done.fetch_add(unreported, std::memory_order_relaxed);
+      },
+      ctl, poll, interval);
 }
 
 }  // namespace sl

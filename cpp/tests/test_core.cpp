@@ -121,6 +121,25 @@ SL_TEST(one_worker_takes_the_path_in_pieces) {
   SL_CHECK((path_pieces(8, 4) == std::vector<std::int64_t>{0, 4, 8}));
 }
 
+SL_TEST(in_order_runs_give_the_sequential_result) {
+  // Position p reads the positions p - 1 and p - 7 (its conflicts): each value depends on the order
+  // of everything before it, so any node run before what it reads changes the last value.
+  const std::int64_t n = 5000;
+  auto reads = [](std::int64_t p, std::int64_t q) { return p - q == 1 || p - q == 7; };
+  auto run = [&](int threads) {
+    std::vector<std::uint64_t> v(static_cast<std::size_t>(n), 0);
+    WorkControl ctl;
+    run_in_order(threads, n, reads, [&](int, std::int64_t p) {
+      const std::uint64_t a = p >= 1 ? v[static_cast<std::size_t>(p - 1)] : 1, b = p >= 7 ? v[static_cast<std::size_t>(p - 7)] : 3;
+      v[static_cast<std::size_t>(p)] = random_bits(a, 0, b, Stream::user) | 1;  // never 0
+    }, ctl, nullptr);
+    SL_CHECK(ctl.done.load() == n);
+    return v;
+  };
+  const auto one = run(1);
+  SL_CHECK(run(2) == one && run(4) == one);
+}
+
 SL_TEST(pool_runs_batches_and_cancels) {
   std::vector<std::int64_t> starts{0, 10, 25, 40};
   std::vector<int> hit(40, 0);

@@ -228,13 +228,17 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
         q.order = std::move(order);
       }
     }
-    // The realization is that of one worker visiting the path in order. Several workers run it in
-    // batches of nodes that cannot read each other, which gives the same result. Steering reads
-    // the proportions as they stand after each batch, so with steering every thread count runs
-    // those batches; without it one worker takes the path in pieces (only to poll between them).
-    const std::vector<std::int64_t> starts = threads > 1 || gain > 0
-                                                 ? conflict_free_batches(grid, level, reach, path, opt.max_batch)
-                                                 : path_pieces(path.size(), opt.max_batch);
+    // The realization is that of one worker visiting the path in order. Steering reads the
+    // proportions as they stand after each batch of nodes that cannot read each other
+    // (conflict_free_batches, which leaves that result), so with steering every thread count runs
+    // those batches, with a barrier after each. Without it, one worker takes the path in pieces
+    // (only to poll between them), and several take its nodes in order, each node first waiting
+    // for the earlier nodes in reach still running (`in_order`, run_in_order): no barriers, so
+    // coarse levels, whose batches hold few nodes, run in parallel too.
+    const bool in_order = gain == 0 && threads > 1;
+    const std::vector<std::int64_t> starts = in_order  ? std::vector<std::int64_t>{}
+                                             : gain > 0 ? conflict_free_batches(grid, level, reach, path, opt.max_batch)
+                                                        : path_pieces(path.size(), opt.max_batch);
     // Build (or find) the ordered trees of this level, one per worker at a time.
     std::vector<std::size_t> wanted;
     for (std::size_t i = 0; i < stage_query.size(); ++i)
@@ -309,7 +313,7 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
         for (int k = 0; k < K; ++k)
           if (w.scratch.best[static_cast<std::size_t>(k)] > 0) only = only < 0 ? k : K;
         if (only >= 0 && only < K) {
-          sim[static_cast<std::size_t>(cell)] = static_cast<std::int16_t>(only);
+          std::atomic_ref<std::int16_t>(sim[static_cast<std::size_t>(cell)]).store(static_cast<std::int16_t>(only), std::memory_order_release);
           return;
         }
       }
@@ -365,7 +369,8 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
         }
       }
       if (pick < 0) pick = last_positive;  // rounding left u above the running sum
-      sim[static_cast<std::size_t>(cell)] = static_cast<std::int16_t>(pick);
+      // Release: a worker waiting for this node (in_order) then sees the code and what led to it.
+      std::atomic_ref<std::int16_t>(sim[static_cast<std::size_t>(cell)]).store(static_cast<std::int16_t>(pick), std::memory_order_release);
     };
     auto after_batch = [&](std::size_t b) {
       if (ctl.cancelled()) return;  // the batch may be unfinished; the run is being abandoned
@@ -377,7 +382,21 @@ std::vector<std::int16_t> simulate_trees(const std::vector<const PatternTree*>& 
     };
     for (auto& w : workers) w.informed = w.kept = w.scans = w.remembered = w.visited = 0;
     const auto t0 = std::chrono::steady_clock::now();
-    run_batches(threads, starts, node, after_batch, ctl, poll);
+    if (in_order) {
+      // Nodes within the template's reach of each other (per axis, in cells of this level) may
+      // read each other; the same test as the batches'.
+      auto conflicts = [&](std::int64_t p, std::int64_t q) {
+        const Ijk a = grid.cell(path[static_cast<std::size_t>(p)]), b = grid.cell(path[static_cast<std::size_t>(q)]);
+        bool near = true;
+        for (int k = 0; k < 3; ++k) near = near && std::abs(a[k] - b[k]) <= Index{reach[k]} * step;
+        return near;
+      };
+      run_in_order(threads, static_cast<std::int64_t>(path.size()), conflicts, node, ctl, poll);
+      if (ctl.cancelled()) throw Cancelled();
+      for (Index cell : path) counts[static_cast<std::size_t>(sim[static_cast<std::size_t>(cell)])] += 1;
+    } else {
+      run_batches(threads, starts, node, after_batch, ctl, poll);
+    }
     const double seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
     if (stats) {
       const auto L = static_cast<std::size_t>(level);
