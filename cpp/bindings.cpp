@@ -368,7 +368,7 @@ void bind_direct(py::module_& m) {
       [](const std::vector<const ds::TrainingImage*>& tis, std::array<Index, 3> shape,
          const std::vector<CArray<float>>& state_in, const std::vector<bool>& auxiliary, const py::list& zone_params,
          const py::object& zone_in, const py::object& matrices_in, const py::object& classes_in, const std::string& path,
-         std::uint64_t seed, int threads, std::int64_t max_batch, const py::object& progress) {
+         std::uint64_t seed, int threads, const py::object& progress) {
         const sl::Grid grid(to_ijk(shape));
         if (zone_params.size() != tis.size() || tis.empty())
           throw sl::ParameterError("zones", "must give one parameter set per training image.");
@@ -391,7 +391,6 @@ void bind_direct(py::module_& m) {
             throw sl::ParameterError("path", "must be 'random' or 'sweep'; got '" + path + "'.");
           p.seed = seed;
           p.threads = threads;
-          p.max_batch = max_batch;
           params.push_back(std::move(p));
         }
         CArray<std::int32_t> zone, classes;
@@ -444,7 +443,7 @@ void bind_direct(py::module_& m) {
       },
       py::arg("tis"), py::arg("shape"), py::arg("state"), py::arg("auxiliary"), py::arg("zone_params"),
       py::arg("zone"), py::arg("matrices"), py::arg("classes"), py::arg("path"), py::arg("seed"), py::arg("threads"),
-      py::arg("max_batch"), py::arg("progress") = py::none());
+      py::arg("progress") = py::none());
 }
 
 }  // namespace

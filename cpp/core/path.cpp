@@ -28,6 +28,13 @@ std::vector<Index> level_cells(const Grid& grid, int level, int coarsest) {
   return out;
 }
 
+namespace {
+// Appends the starts of pieces of at most max_batch positions covering [begin, end).
+void add_pieces(std::vector<std::int64_t>& starts, std::int64_t begin, std::int64_t end, std::int64_t max_batch) {
+  for (std::int64_t s = begin; s < end; s += max_batch) starts.push_back(s);
+}
+}  // namespace
+
 void shuffle_path(std::vector<Index>& cells, std::uint64_t seed, int level) {
   const std::size_t n = cells.size();
   const CellBits key_of(seed, static_cast<std::uint32_t>(level), Stream::path);
@@ -130,8 +137,7 @@ std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, con
   for (std::uint32_t b : batch_of) ++first[b + 1];
   for (std::size_t b = 1; b < first.size(); ++b) first[b] += first[b - 1];
   std::vector<std::int64_t> starts;
-  for (std::size_t b = 1; b <= batches; ++b)
-    for (std::int64_t s = first[b]; s < first[b + 1]; s += max_batch) starts.push_back(s);
+  for (std::size_t b = 1; b <= batches; ++b) add_pieces(starts, first[b], first[b + 1], max_batch);
   starts.push_back(static_cast<std::int64_t>(path.size()));
   std::vector<Index> out(path.size());
   for (std::size_t i = 0; i < path.size(); ++i) out[static_cast<std::size_t>(first[batch_of[i]]++)] = path[i];
@@ -142,7 +148,7 @@ std::vector<std::int64_t> conflict_free_batches(const Grid& grid, int level, con
 std::vector<std::int64_t> path_pieces(std::size_t count, std::int64_t max_batch) {
   require(max_batch >= 1, "max_batch", "must be at least 1.");
   std::vector<std::int64_t> starts;
-  for (std::int64_t s = 0; s < static_cast<std::int64_t>(count); s += max_batch) starts.push_back(s);
+  add_pieces(starts, 0, static_cast<std::int64_t>(count), max_batch);
   starts.push_back(static_cast<std::int64_t>(count));
   return starts;
 }

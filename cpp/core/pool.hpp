@@ -228,13 +228,6 @@ void run_batches(int threads, const std::vector<std::int64_t>& starts, NodeFn&& 
   if (after_error) std::rethrow_exception(after_error);
 }
 
-// Runs node_fn(worker, position) for positions 0..count-1, handed out in increasing order to
-// `threads` workers under run_supervised, without barriers: a position starts once every earlier
-// position q with conflicts(position, q) is done, so the result is that of one worker visiting
-// the positions in order (conflicts must hold for every pair of which one reads the other's
-// result). Each worker shows the position it runs in a slot; positions are handed out and shown
-// under one lock, so every earlier position is either done or in a slot, and a position checks
-// only the other workers' slots. Progress (ctl.done) is added every 64 nodes.
 namespace detail {
 // The position a worker of run_in_order runs (kIdle: none), on its own cache line.
 struct alignas(64) OrderSlot {
@@ -243,6 +236,13 @@ struct alignas(64) OrderSlot {
 };
 }  // namespace detail
 
+// Runs node_fn(worker, position) for positions 0..count-1, handed out in increasing order to
+// `threads` workers under run_supervised, without barriers: a position starts once every earlier
+// position q with conflicts(position, q) is done, so the result is that of one worker visiting
+// the positions in order (conflicts must hold for every pair of which one reads the other's
+// result). Each worker shows the position it runs in a slot; positions are handed out and shown
+// under one lock, so every earlier position is either done or in a slot, and a position checks
+// only the other workers' slots. Progress (ctl.done) is added every 64 nodes.
 template <class Conflicts, class NodeFn>
 void run_in_order(int threads, std::int64_t count, Conflicts&& conflicts, NodeFn&& node_fn, WorkControl& ctl,
                   const Poll& poll, std::chrono::milliseconds interval = std::chrono::milliseconds(100)) {

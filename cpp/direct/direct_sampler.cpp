@@ -923,7 +923,6 @@ void check_params(const TrainingImage& ti, const Params& params, bool turned) {
   require(params.accept_distance >= 0 && params.accept_distance <= 1, "accept_distance", "must be a number in [0, 1].");
   require(params.scan_fraction > 0 && params.scan_fraction <= 1, "scan_fraction", "must be a number in (0, 1].");
   require(std::isfinite(params.lag_power) && params.lag_power >= 0, "lag_power", "must be a finite number >= 0.");
-  require(params.max_batch >= 1, "max_batch", "must be at least 1.");
   if (turned) return;  // turned lags are checked against the padding as they are made
   for (const Offset& o : params.search)
     for (int a = 0; a < 3; ++a)
@@ -1036,7 +1035,7 @@ Stats simulate_zones(const std::vector<const TrainingImage*>& tis, const std::ve
     for (const Params& p : params)
       for (const Offset& o : p.search)
         for (int a = 0; a < 3; ++a) reach[a] = std::max(reach[a], std::abs(o[a]));
-    if (threads > 1) conflict_free_batches(grid, 0, reach, path, global.max_batch);
+    if (threads > 1) conflict_free_batches(grid, 0, reach, path);  // the order only: workers wait per node
   }
   // The result is that of one thread visiting the path in order: a node waits only for the earlier
   // nodes it reads (no barrier between batches, so a worker the system pauses holds up only the nodes

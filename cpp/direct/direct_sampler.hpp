@@ -148,7 +148,6 @@ struct Params {
   PathKind path = PathKind::random;  // random path (batch-ordered), or one sweep in flat order
   std::uint64_t seed = 0;
   int threads = 0;                   // <= 0: all hardware threads
-  std::int64_t max_batch = 256;      // batch size cap of the conflict-free ordering (no effect on the result)
 };
 
 // Engine counters of one run.
@@ -190,7 +189,7 @@ Stats simulate(const TrainingImage& ti, const Grid& grid, const std::vector<floa
                const Poll& poll);
 
 // Zones: zone z of the grid copies from tis[z] with params[z] (neighbours, thresholds, search window,
-// weights, lag power); path, seed, threads and max_batch come from params[0]. `zone` holds the zone of
+// weights, lag power); path, seed and threads come from params[0]. `zone` holds the zone of
 // every grid cell (null: all zone 0). Nodes read their neighbours whatever their zone, so borders see
 // both sides; `source` holds indices into the node's own zone TI. All TIs hold the same variables
 // and kinds, in one set of normalised units.

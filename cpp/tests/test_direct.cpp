@@ -422,7 +422,6 @@ SL_TEST(direct_result_is_the_same_for_any_thread_count) {
     Params p = params_for(t, 12, 0.05, 0.2, 1);
     p.seed = 42;
     p.threads = threads;
-    p.max_batch = 32;
     simulate(img, grid, ptrs, {false}, p, source.data(), ctl, Poll{});
     for (auto x : source) SL_CHECK(x >= 0 && x < img.size());
     sources.push_back(source);

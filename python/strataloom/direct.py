@@ -44,8 +44,6 @@ _KINDS = ("continuous", "categorical")
 _PATHS = ("random", "sweep")
 #: Largest category code (codes travel as float32, exact below 2**24).
 _MAX_CODE = 2**24 - 1
-#: Batch size cap of the conflict-free ordering of the random path (spreads consecutive nodes).
-_MAX_BATCH = 256
 
 
 # --- the declarative table of constraints ---
@@ -513,7 +511,6 @@ def _run(samplers: list[DirectSampler], zones: np.ndarray | None, shape: Any, *,
         pth,
         sd,
         th,
-        _MAX_BATCH,
         progress,
     )
     stats = dict(stats)
